@@ -1,0 +1,115 @@
+//! Typed errors of the computation core.
+//!
+//! Every failure on user data is one of these variants; the core never panics on
+//! user data. The server maps them to RFC 9457 problem details in one place.
+
+use thiserror::Error;
+
+/// Everything that can go wrong inside `kinema-core`.
+///
+/// Variants name the offending point, element or parameter so that a caller can
+/// point the user at the bad value.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum CoreError {
+    /// A coordinate, displacement, precision or parameter is NaN or infinite.
+    #[error("point `{id}`: {field} is not a finite number")]
+    NonFinite {
+        /// Point (or element/group) identifier.
+        id: String,
+        /// Name of the field, e.g. `x`, `uy`, `sigma_x`.
+        field: &'static str,
+    },
+    /// Two points share one identifier.
+    #[error("duplicate point id `{id}`")]
+    DuplicatePoint {
+        /// The repeated identifier.
+        id: String,
+    },
+    /// A point identifier is empty or not made of `A-Za-z0-9._-` (1–64 chars).
+    #[error("invalid point id `{id}`: {reason}")]
+    InvalidId {
+        /// The offending identifier (possibly truncated for display by the caller).
+        id: String,
+        /// Why it is invalid.
+        reason: String,
+    },
+    /// Not enough points for the requested estimate.
+    #[error("{context}: need at least {needed} points, got {got}")]
+    TooFewPoints {
+        /// What was being estimated (element, group, neighbourhood …).
+        context: String,
+        /// Minimum count.
+        needed: usize,
+        /// Count supplied.
+        got: usize,
+    },
+    /// A point has the wrong number of coordinates for the analysis dimension.
+    #[error("point `{id}` has {got} coordinates, expected {expected}")]
+    DimensionMismatch {
+        /// Point identifier.
+        id: String,
+        /// Dimension of the analysis (2 or 3).
+        expected: usize,
+        /// Dimension found.
+        got: usize,
+    },
+    /// An element or group refers to a point that is not in the point set.
+    #[error("{context} refers to unknown point `{id}`")]
+    UnknownPoint {
+        /// The element or group that holds the reference.
+        context: String,
+        /// The missing point identifier.
+        id: String,
+    },
+    /// The points of a group are collinear (2D) or coplanar (3D), so the gradient
+    /// is not determined in every direction.
+    #[error(
+        "{context}: points are {shape} (moment-matrix condition {condition:.3e}); the gradient is not determined"
+    )]
+    DegenerateGeometry {
+        /// The group, neighbourhood or network concerned.
+        context: String,
+        /// `collinear` or `coplanar` (or `coincident`).
+        shape: &'static str,
+        /// Ratio of the smallest to the largest eigenvalue of the centred moment matrix.
+        condition: f64,
+    },
+    /// A user-supplied or triangulated element has (near) zero area or volume, or
+    /// repeats a vertex.
+    #[error("element `{element}` is degenerate: {reason}")]
+    DegenerateElement {
+        /// Element identifier.
+        element: String,
+        /// Why (zero area, repeated vertex …).
+        reason: String,
+    },
+    /// A parameter is outside its allowed range.
+    #[error("invalid parameter `{name}`: {reason}")]
+    InvalidParameter {
+        /// Parameter name as the user sees it.
+        name: &'static str,
+        /// What is wrong with it.
+        reason: String,
+    },
+    /// The bounded symmetric eigen-solver did not converge within its iteration cap.
+    #[error("eigen-solver did not converge within {max_iter} iterations")]
+    EigenNoConvergence {
+        /// The iteration cap that was reached.
+        max_iter: usize,
+    },
+    /// The input grid is malformed (wrong number of cells, too small, bad spacing).
+    #[error("grid: {reason}")]
+    InvalidGrid {
+        /// What is wrong.
+        reason: String,
+    },
+    /// The input is empty.
+    #[error("no {what} given")]
+    Empty {
+        /// What was expected (points, elements, groups).
+        what: &'static str,
+    },
+}
+
+/// Result alias for the core.
+pub type Result<T> = std::result::Result<T, CoreError>;

@@ -1,0 +1,1 @@
+//! Kinematics of one displacement gradient (in progress).

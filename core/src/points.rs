@@ -1,0 +1,290 @@
+//! Measured points: reference coordinates, displacements and stated precision.
+
+use std::collections::HashSet;
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{CoreError, Result};
+
+/// Longest allowed point identifier, in characters.
+pub const MAX_ID_LEN: usize = 64;
+
+/// One monitoring point in `D` dimensions (2 or 3).
+///
+/// - `x`: reference coordinates in metres, in the structure's frame.
+/// - `u`: displacement (current minus reference) in metres, same frame.
+/// - `sigma`: optional stated standard deviation of each displacement component,
+///   in metres. Used for per-point weights (`w = 1/σ²`) by the least-squares
+///   estimators; `None` means unit weight.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Point<const D: usize> {
+    /// Client's point identifier (1–64 chars of `A-Za-z0-9._-`).
+    pub id: String,
+    /// Reference coordinates, metres.
+    #[serde(with = "serde_arrays")]
+    pub x: [f64; D],
+    /// Displacement, metres.
+    #[serde(with = "serde_arrays")]
+    pub u: [f64; D],
+    /// Standard deviation of each displacement component, metres.
+    #[serde(default, with = "serde_opt_arrays")]
+    pub sigma: Option<[f64; D]>,
+}
+
+impl<const D: usize> Point<D> {
+    /// A point with unit weight.
+    pub fn new(id: impl Into<String>, x: [f64; D], u: [f64; D]) -> Self {
+        Self {
+            id: id.into(),
+            x,
+            u,
+            sigma: None,
+        }
+    }
+
+    /// The same point with a stated standard deviation per axis (metres).
+    pub fn with_sigma(mut self, sigma: [f64; D]) -> Self {
+        self.sigma = Some(sigma);
+        self
+    }
+}
+
+/// Check one identifier against the ID rule (1–64 chars of `A-Za-z0-9._-`).
+pub fn validate_id(id: &str) -> Result<()> {
+    if id.is_empty() {
+        return Err(CoreError::InvalidId {
+            id: id.to_owned(),
+            reason: "empty".into(),
+        });
+    }
+    if id.chars().count() > MAX_ID_LEN {
+        return Err(CoreError::InvalidId {
+            id: id.chars().take(MAX_ID_LEN).collect::<String>() + "…",
+            reason: format!("longer than {MAX_ID_LEN} characters"),
+        });
+    }
+    if let Some(c) = id
+        .chars()
+        .find(|c| !(c.is_ascii_alphanumeric() || matches!(c, '.' | '_' | '-')))
+    {
+        return Err(CoreError::InvalidId {
+            id: id.to_owned(),
+            reason: format!("character {c:?} is not one of A-Z a-z 0-9 . _ -"),
+        });
+    }
+    Ok(())
+}
+
+const AXES: [&str; 3] = ["x", "y", "z"];
+const DISP: [&str; 3] = ["ux", "uy", "uz"];
+const SIG: [&str; 3] = ["sigma_x", "sigma_y", "sigma_z"];
+
+/// A validated set of points: finite values, valid and unique IDs,
+/// positive standard deviations, `D` in {2, 3}.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PointSet<const D: usize> {
+    points: Vec<Point<D>>,
+}
+
+impl<const D: usize> PointSet<D> {
+    /// Validate `points`. The first problem found is returned, naming the point.
+    pub fn new(points: Vec<Point<D>>) -> Result<Self> {
+        if D != 2 && D != 3 {
+            return Err(CoreError::InvalidParameter {
+                name: "dimension",
+                reason: format!("{D} is not 2 or 3"),
+            });
+        }
+        if points.is_empty() {
+            return Err(CoreError::Empty { what: "points" });
+        }
+        let mut seen: HashSet<&str> = HashSet::with_capacity(points.len());
+        for p in &points {
+            validate_id(&p.id)?;
+            for k in 0..D {
+                if !p.x[k].is_finite() {
+                    return Err(CoreError::NonFinite {
+                        id: p.id.clone(),
+                        field: AXES[k],
+                    });
+                }
+                if !p.u[k].is_finite() {
+                    return Err(CoreError::NonFinite {
+                        id: p.id.clone(),
+                        field: DISP[k],
+                    });
+                }
+                if let Some(s) = p.sigma {
+                    if !s[k].is_finite() {
+                        return Err(CoreError::NonFinite {
+                            id: p.id.clone(),
+                            field: SIG[k],
+                        });
+                    }
+                    if s[k] <= 0.0 {
+                        return Err(CoreError::InvalidParameter {
+                            name: SIG[k],
+                            reason: format!(
+                                "point `{}`: standard deviation must be positive, got {}",
+                                p.id, s[k]
+                            ),
+                        });
+                    }
+                }
+            }
+            if !seen.insert(p.id.as_str()) {
+                return Err(CoreError::DuplicatePoint { id: p.id.clone() });
+            }
+        }
+        Ok(Self { points })
+    }
+
+    /// The points, in input order.
+    pub fn points(&self) -> &[Point<D>] {
+        &self.points
+    }
+
+    /// Number of points.
+    pub fn len(&self) -> usize {
+        self.points.len()
+    }
+
+    /// Always false for a validated set (it holds at least one point).
+    pub fn is_empty(&self) -> bool {
+        self.points.is_empty()
+    }
+
+    /// Position of the point with identifier `id`, by linear search.
+    /// Estimators that look up many IDs build their own map.
+    pub fn position(&self, id: &str) -> Option<usize> {
+        self.points.iter().position(|p| p.id == id)
+    }
+
+    /// Centroid of the reference coordinates, metres.
+    pub fn centroid(&self) -> [f64; D] {
+        let mut c = [0.0; D];
+        for p in &self.points {
+            for k in 0..D {
+                c[k] += p.x[k];
+            }
+        }
+        let n = self.points.len() as f64;
+        c.map(|v| v / n)
+    }
+
+    /// Give the points back.
+    pub fn into_inner(self) -> Vec<Point<D>> {
+        self.points
+    }
+}
+
+/// serde for `[f64; D]` with a const generic `D` (serde's own impls stop at fixed sizes).
+mod serde_arrays {
+    use serde::de::Error;
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer, const D: usize>(v: &[f64; D], s: S) -> Result<S::Ok, S::Error> {
+        s.collect_seq(v.iter())
+    }
+
+    pub fn deserialize<'de, De: Deserializer<'de>, const D: usize>(
+        d: De,
+    ) -> Result<[f64; D], De::Error> {
+        let v = Vec::<f64>::deserialize(d)?;
+        let n = v.len();
+        v.try_into()
+            .map_err(|_| De::Error::invalid_length(n, &"one number per axis"))
+    }
+}
+
+mod serde_opt_arrays {
+    use serde::de::Error;
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer, const D: usize>(
+        v: &Option<[f64; D]>,
+        s: S,
+    ) -> Result<S::Ok, S::Error> {
+        match v {
+            Some(a) => s.collect_seq(a.iter()),
+            None => s.serialize_none(),
+        }
+    }
+
+    pub fn deserialize<'de, De: Deserializer<'de>, const D: usize>(
+        d: De,
+    ) -> Result<Option<[f64; D]>, De::Error> {
+        match Option::<Vec<f64>>::deserialize(d)? {
+            None => Ok(None),
+            Some(v) => {
+                let n = v.len();
+                v.try_into()
+                    .map(Some)
+                    .map_err(|_| De::Error::invalid_length(n, &"one number per axis"))
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rejects_nan_duplicate_bad_id_and_bad_sigma() {
+        let ok = Point::new("P1", [0.0, 0.0], [0.0, 0.0]);
+        let nan = Point::new("P2", [f64::NAN, 0.0], [0.0, 0.0]);
+        assert_eq!(
+            PointSet::new(vec![ok.clone(), nan]),
+            Err(CoreError::NonFinite {
+                id: "P2".into(),
+                field: "x"
+            })
+        );
+        let inf = Point::new("P2", [0.0, 0.0], [0.0, f64::INFINITY]);
+        assert_eq!(
+            PointSet::new(vec![ok.clone(), inf]),
+            Err(CoreError::NonFinite {
+                id: "P2".into(),
+                field: "uy"
+            })
+        );
+        assert_eq!(
+            PointSet::new(vec![ok.clone(), ok.clone()]),
+            Err(CoreError::DuplicatePoint { id: "P1".into() })
+        );
+        let bad = Point::new("P 3", [0.0, 0.0], [0.0, 0.0]);
+        assert!(matches!(
+            PointSet::new(vec![bad]),
+            Err(CoreError::InvalidId { .. })
+        ));
+        let long = Point::new("a".repeat(65), [0.0, 0.0], [0.0, 0.0]);
+        assert!(matches!(
+            PointSet::new(vec![long]),
+            Err(CoreError::InvalidId { .. })
+        ));
+        let neg = ok.clone().with_sigma([0.001, 0.0]);
+        assert!(matches!(
+            PointSet::new(vec![neg]),
+            Err(CoreError::InvalidParameter {
+                name: "sigma_y",
+                ..
+            })
+        ));
+        assert_eq!(
+            PointSet::<2>::new(vec![]),
+            Err(CoreError::Empty { what: "points" })
+        );
+        assert!(PointSet::new(vec![ok]).is_ok());
+    }
+
+    #[test]
+    fn json_round_trip_checks_lengths() {
+        let p = Point::new("A-1", [1.0, 2.0, 3.0], [0.1, 0.2, 0.3]).with_sigma([1e-3; 3]);
+        let s = serde_json::to_string(&p).expect("serialise");
+        let back: Point<3> = serde_json::from_str(&s).expect("deserialise");
+        assert_eq!(back, p);
+        let short = r#"{"id":"A","x":[1.0,2.0],"u":[0.0,0.0,0.0]}"#;
+        assert!(serde_json::from_str::<Point<3>>(short).is_err());
+    }
+}
