@@ -164,8 +164,8 @@ impl<const D: usize> PointSet<D> {
     pub fn centroid(&self) -> [f64; D] {
         let mut c = [0.0; D];
         for p in &self.points {
-            for k in 0..D {
-                c[k] += p.x[k];
+            for (ck, xk) in c.iter_mut().zip(p.x.iter()) {
+                *ck += xk;
             }
         }
         let n = self.points.len() as f64;
