@@ -1,5 +1,6 @@
 //! Least-squares, neighbourhood, whole-network and grid estimators of the displacement
 //! gradient, checked against closed-form fields and textbook results.
+#![allow(clippy::needless_range_loop)] // index loops mirror the tensor formulas
 
 mod fit_support;
 
@@ -118,8 +119,15 @@ fn lsq_uniform_case<const D: usize>(seed: u64, n: usize, with_sigma: bool) {
     let t = random_t::<D>(&mut rng);
     let set = uniform_set(&xs, with_sigma.then_some(&sg[..]), &g, &t, &base);
     let members: Vec<usize> = (0..n).collect();
-    for dw in weightings() {
-        let est = fit_points(&set, &members, "G1", RegionKind::Group, None, &opts(dw))
+    for (dw, use_precision) in weightings()
+        .into_iter()
+        .flat_map(|d| [(d, true), (d, false)])
+    {
+        let o = FitOptions {
+            use_precision,
+            ..opts(dw)
+        };
+        let est = fit_points(&set, &members, "G1", RegionKind::Group, None, &o)
             .expect("random cloud fits");
         assert_eq!(est.kind, RegionKind::Group);
         assert_eq!(est.members.len(), n);
@@ -884,6 +892,21 @@ fn too_few_points_and_unknown_or_repeated_points_are_reported() {
         fit_groups(&s, &[], &FitOptions::default()),
         Err(CoreError::Empty { what: "groups" })
     );
+    // fit_points itself refuses a repeated member index.
+    assert!(matches!(
+        fit_points(
+            &s,
+            &[0, 1, 1],
+            "R",
+            RegionKind::Group,
+            None,
+            &FitOptions::default()
+        ),
+        Err(CoreError::InvalidParameter {
+            name: "members",
+            ..
+        })
+    ));
     // Every point beyond the quadratic-decay radius: zero total weight.
     let far = FitOptions {
         distance_weight: DistanceWeight::QuadraticDecay { radius_m: 1.0 },

@@ -62,6 +62,9 @@
 //! group; the default threshold `1e-10` (a group 10⁵ times longer than it is wide) is
 //! common practice for a "numerically flat" group, not a published constant.
 
+// Small fixed-size linear algebra reads most plainly with explicit indices.
+#![allow(clippy::needless_range_loop)]
+
 use std::collections::{HashMap, HashSet};
 
 use nalgebra::{DMatrix, Matrix2, Matrix3, SMatrix};
@@ -390,7 +393,7 @@ impl<const D: usize> Fitter<D> {
                     dw.weight(d2)
                 }
             };
-            if !(delta > 0.0) {
+            if delta.is_nan() || delta <= 0.0 {
                 continue;
             }
             let mut w = [delta; D];
@@ -474,15 +477,16 @@ impl<const D: usize> Fitter<D> {
         let lmax = eig[0];
         let lmin = eig[D - 1];
         let condition = if lmax > 0.0 { lmin / lmax } else { 0.0 };
-        if !(spread > COINCIDENT_REL * mag) {
+        if spread.is_nan() || spread <= COINCIDENT_REL * mag {
             return Err(CoreError::DegenerateGeometry {
                 context: context(kind, label),
                 shape: "coincident",
                 condition,
             });
         }
-        if !(condition >= opts.min_condition) || condition <= 0.0 {
-            let shape = if D == 2 || !(eig[1] / lmax >= opts.min_condition) {
+        if condition.is_nan() || condition < opts.min_condition || condition <= 0.0 {
+            let mid = eig[1] / lmax;
+            let shape = if D == 2 || mid.is_nan() || mid < opts.min_condition {
                 "collinear"
             } else {
                 "coplanar"
@@ -672,7 +676,7 @@ fn spd_inverse(a: &[[f64; 4]; 4], n: usize) -> Option<[[f64; 4]; 4]> {
         for k in 0..j {
             diag -= l[j][k] * l[j][k];
         }
-        if !(diag > 1e-13 * a[j][j]) || !diag.is_finite() {
+        if !diag.is_finite() || diag <= 1e-13 * a[j][j] {
             return None;
         }
         let ljj = diag.sqrt();

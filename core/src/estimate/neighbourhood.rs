@@ -171,7 +171,7 @@ pub fn fit_neighbourhoods_with<const D: usize>(
         let mut c = [0.0; D];
         for k in 0..D {
             c[k] = p.x[k] - origin[k];
-            if !(c[k].abs() < 1e150) {
+            if !c[k].is_finite() || c[k].abs() >= 1e150 {
                 return Err(CoreError::InvalidParameter {
                     name: "coordinates",
                     reason: format!("point `{}`: coordinates too large to index", p.id),
