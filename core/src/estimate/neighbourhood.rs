@@ -99,7 +99,8 @@ impl Selection {
 }
 
 impl<const D: usize> Centres<D> {
-    /// Number of centres (nodes) for a grid, checked for overflow.
+    /// Check grid parameters: finite origin, positive finite spacing, ≥ 1 node per axis,
+    /// node count without overflow.
     fn validate(&self) -> Result<()> {
         if let Centres::Grid {
             origin,
