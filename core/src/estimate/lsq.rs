@@ -1,1 +1,757 @@
-//! (in progress)
+//! Weighted least-squares fit of a uniform displacement gradient over a group of points.
+//!
+//! ## Model
+//! For the member points `p` the model is
+//!
+//! ```text
+//! u_p = t + G · (x_p − x̄)
+//! ```
+//!
+//! with `G[i][j] = ∂u_i/∂x_j` (dimensionless), `t` the displacement at `x̄` (metres) and
+//! `x̄` the *weighted centroid* of the group (metres, see below). Fitting about the centroid
+//! rather than the origin keeps the normal equations well conditioned for survey
+//! coordinates with large offsets (easting/northing of 10⁵–10⁶ m), and makes `t` the
+//! displacement of the group's centre of weight.
+//!
+//! ## Weights
+//! Every point has one weight per displacement axis:
+//!
+//! ```text
+//! w_{p,i} = π_{p,i} · δ_p
+//! ```
+//!
+//! - precision weight `π_{p,i} = 1/σ_{p,i}²` (σ in metres, so π in 1/m²) when
+//!   [`FitOptions::use_precision`] is set and the point states its precision; otherwise 1;
+//! - distance weight `δ_p` of the point's distance `d` (metres) from a centre
+//!   ([`DistanceWeight`]); 1 when no distance weighting is asked for.
+//!
+//! Points whose weight is zero (for example beyond the radius of
+//! [`DistanceWeight::QuadraticDecay`]) are not observations: they are left out of the fit,
+//! the member list, the residuals and the redundancy.
+//!
+//! The centroid and the moment matrix use one scalar weight per point, `w̄_p = δ_p · mean_i
+//! π_{p,i}`; it equals the per-axis weight whenever the precision is the same on every axis.
+//!
+//! ## Solution
+//! With diagonal (per-axis) weights the `D` displacement components are independent
+//! regressions on the regressors `[1, x − x̄]`, each with its own `(D+1)×(D+1)` normal
+//! matrix `N_i = Σ_p w_{p,i} a_p a_pᵀ`, `a_p = [1, (x_p − x̄)/s]` (the coordinates are scaled by
+//! the RMS spread `s` of the group so that `N_i` is close to diagonal with entries of one
+//! size). Each `N_i` is solved by Cholesky decomposition, followed by one step of iterative
+//! refinement on the residuals.
+//!
+//! - Redundancy `r = n·D − D·(D+1)` for `n` points with non-zero weight.
+//! - Residuals `v = u_observed − u_fitted` (metres); `vᵀPv = Σ_{p,i} w_{p,i} v_{p,i}²`.
+//! - A-posteriori variance factor `σ̂₀² = vᵀPv / r` when `r > 0` (Ghilani & Wolf,
+//!   *Adjustment Computations*, the reference variance of a weighted adjustment).
+//! - Covariance of `vec(G)` (row-major: `G[0][0], G[0][1], …`) is block diagonal: row `i`
+//!   of `G` gets `σ̂₀² · [N_i⁻¹]_{G-part}` (rescaled by `1/s²`). When `r = 0` the fit is
+//!   exact, it says nothing about precision, and the a-priori variance factor 1 is used
+//!   instead (`FitStats::exact = true`, `variance_factor = None`).
+//!
+//! ## Geometry check
+//! The centred weighted moment matrix `M = Σ_p w̄_p (x_p − x̄)(x_p − x̄)ᵀ` (m² times weight)
+//! shows whether the points span every direction. With its eigenvalues
+//! `λ_max ≥ … ≥ λ_min`:
+//! - the RMS spread `sqrt(tr M / Σ w̄)` is below `1e-12 · max(1 m, |x̄|∞)` (coordinate
+//!   rounding) → `coincident`;
+//! - otherwise `λ_min/λ_max < min_condition` → `collinear` (2D; in 3D when also the middle
+//!   eigenvalue is that small) or `coplanar` (3D).
+//!
+//! The ratio `λ_min/λ_max` is the squared ratio of the thinnest to the widest extent of the
+//! group; the default threshold `1e-10` (a group 10⁵ times longer than it is wide) is
+//! common practice for a "numerically flat" group, not a published constant.
+
+// Small fixed-size linear algebra reads most plainly with explicit indices.
+#![allow(clippy::needless_range_loop)]
+
+use std::collections::{HashMap, HashSet};
+
+use nalgebra::{DMatrix, Matrix2, Matrix3, SMatrix};
+
+use super::{FitStats, GradientEstimate, RegionKind};
+use crate::error::{CoreError, Result};
+use crate::points::PointSet;
+
+/// Default [`FitOptions::min_condition`]: smallest accepted `λ_min/λ_max` of the moment matrix.
+pub const DEFAULT_MIN_CONDITION: f64 = 1e-10;
+
+/// Relative spread below which the points of a group count as one point (coordinate rounding).
+const COINCIDENT_REL: f64 = 1e-12;
+
+/// Iteration cap of the bounded symmetric eigen-solver on the moment matrix.
+const EIGEN_MAX_ITER: usize = 200;
+
+/// Weighting of each point by its distance `d` (metres) from a centre.
+///
+/// Neither kernel has a single authoritative source; both are common practice in
+/// moving least squares and strain-field interpolation.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub enum DistanceWeight {
+    /// Every point has distance weight 1.
+    #[default]
+    None,
+    /// Gaussian kernel `δ = exp(−d² / (2 s²))`.
+    Gaussian {
+        /// Scale `s`, metres; positive and finite.
+        scale_m: f64,
+    },
+    /// Quadratic decay `δ = (1 − d²/R²)²` for `d < R`, else `0` (those points drop out).
+    QuadraticDecay {
+        /// Radius `R`, metres; positive and finite.
+        radius_m: f64,
+    },
+}
+
+impl DistanceWeight {
+    /// Check the kernel parameter: positive and finite.
+    pub fn validate(&self) -> Result<()> {
+        match *self {
+            DistanceWeight::None => Ok(()),
+            DistanceWeight::Gaussian { scale_m } => positive_finite("scale_m", scale_m),
+            DistanceWeight::QuadraticDecay { radius_m } => positive_finite("radius_m", radius_m),
+        }
+    }
+
+    /// Weight for a squared distance `d²` (m²), dimensionless, in `[0, 1]`.
+    pub fn weight(&self, d2: f64) -> f64 {
+        match *self {
+            DistanceWeight::None => 1.0,
+            DistanceWeight::Gaussian { scale_m } => (-d2 / (2.0 * scale_m * scale_m)).exp(),
+            DistanceWeight::QuadraticDecay { radius_m } => {
+                let q = d2 / (radius_m * radius_m);
+                if q < 1.0 {
+                    let a = 1.0 - q;
+                    a * a
+                } else {
+                    0.0
+                }
+            }
+        }
+    }
+}
+
+fn positive_finite(name: &'static str, v: f64) -> Result<()> {
+    if v.is_finite() && v > 0.0 {
+        Ok(())
+    } else {
+        Err(CoreError::InvalidParameter {
+            name,
+            reason: format!("must be a positive finite length in metres, got {v}"),
+        })
+    }
+}
+
+/// Options of the weighted least-squares fit.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FitOptions {
+    /// Weight each displacement component by `1/σ²` from [`crate::Point::sigma`] where the
+    /// point states it (points without a stated precision get weight 1).
+    pub use_precision: bool,
+    /// Distance weighting relative to the fit's centre.
+    pub distance_weight: DistanceWeight,
+    /// Smallest accepted ratio `λ_min/λ_max` of the centred moment matrix (dimensionless,
+    /// `0 ≤ min_condition < 1`); below it the group is reported as degenerate.
+    pub min_condition: f64,
+}
+
+impl Default for FitOptions {
+    /// Precision weights on, no distance weighting, `min_condition = 1e-10`.
+    fn default() -> Self {
+        Self {
+            use_precision: true,
+            distance_weight: DistanceWeight::None,
+            min_condition: DEFAULT_MIN_CONDITION,
+        }
+    }
+}
+
+impl FitOptions {
+    /// Check the options: kernel parameter positive and finite, `0 ≤ min_condition < 1`.
+    pub fn validate(&self) -> Result<()> {
+        self.distance_weight.validate()?;
+        if !(self.min_condition.is_finite() && (0.0..1.0).contains(&self.min_condition)) {
+            return Err(CoreError::InvalidParameter {
+                name: "min_condition",
+                reason: format!("must lie in [0, 1), got {}", self.min_condition),
+            });
+        }
+        Ok(())
+    }
+}
+
+/// A named group of points for [`fit_groups`].
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Group {
+    /// Group name, used as the estimate's label and in error messages.
+    pub name: String,
+    /// Identifiers of the member points (each at most once).
+    pub point_ids: Vec<String>,
+}
+
+/// Fit `u = t + G·(x − x̄)` to the points `members` (indices into `points`).
+///
+/// - `label`: the estimate's label and the name used in error messages;
+/// - `kind`: [`RegionKind::Group`], [`RegionKind::Neighbourhood`] or [`RegionKind::Network`];
+/// - `centre`: reference point of the distance weighting, metres; `None` uses the
+///   unweighted centroid of the members.
+///
+/// The estimate's `members` are the points with non-zero weight, in the given order;
+/// `centroid` is the weighted centroid `x̄`, `translation` is `t` and `fit` holds the
+/// residuals, variance factor, redundancy and covariance of `vec(G)` (module docs).
+///
+/// # Errors
+/// `TooFewPoints` (fewer than `D+1` points with non-zero weight), `DegenerateGeometry`
+/// (coincident, collinear, coplanar), `InvalidParameter` (bad options, member index out of
+/// range or repeated, non-finite centre, every weight zero), `EigenNoConvergence`.
+pub fn fit_points<const D: usize>(
+    points: &PointSet<D>,
+    members: &[usize],
+    label: &str,
+    kind: RegionKind,
+    centre: Option<[f64; D]>,
+    opts: &FitOptions,
+) -> Result<GradientEstimate<D>> {
+    opts.validate()?;
+    let n = points.len();
+    let mut seen = HashSet::with_capacity(members.len());
+    for &m in members {
+        if m >= n {
+            return Err(CoreError::InvalidParameter {
+                name: "members",
+                reason: format!(
+                    "{}: index {m} is outside the point set of {n} points",
+                    context(kind, label)
+                ),
+            });
+        }
+        if !seen.insert(m) {
+            return Err(CoreError::InvalidParameter {
+                name: "members",
+                reason: format!(
+                    "{}: point `{}` is listed twice",
+                    context(kind, label),
+                    points.points()[m].id
+                ),
+            });
+        }
+    }
+    Fitter::new()
+        .fit(points, members, label, kind, centre, opts)
+        .map(|o| o.estimate)
+}
+
+/// Fit every named group (see [`fit_points`]), in the given order.
+///
+/// Distance weighting, if asked for, is relative to each group's unweighted centroid.
+///
+/// # Errors
+/// `Empty` when no group is given; `InvalidParameter` for an empty group name or a point
+/// listed twice in one group; `UnknownPoint { context: "group `NAME`", id }`; and any error
+/// of [`fit_points`] for the first bad group, naming it.
+pub fn fit_groups<const D: usize>(
+    points: &PointSet<D>,
+    groups: &[Group],
+    opts: &FitOptions,
+) -> Result<Vec<GradientEstimate<D>>> {
+    opts.validate()?;
+    if groups.is_empty() {
+        return Err(CoreError::Empty { what: "groups" });
+    }
+    let index: HashMap<&str, usize> = points
+        .points()
+        .iter()
+        .enumerate()
+        .map(|(i, p)| (p.id.as_str(), i))
+        .collect();
+    let mut fitter = Fitter::new();
+    let mut out = Vec::with_capacity(groups.len());
+    let mut members = Vec::new();
+    let mut seen = HashSet::new();
+    for g in groups {
+        if g.name.is_empty() {
+            return Err(CoreError::InvalidParameter {
+                name: "group name",
+                reason: "empty".into(),
+            });
+        }
+        let ctx = || context(RegionKind::Group, &g.name);
+        members.clear();
+        seen.clear();
+        for id in &g.point_ids {
+            let Some(&i) = index.get(id.as_str()) else {
+                return Err(CoreError::UnknownPoint {
+                    context: ctx(),
+                    id: id.clone(),
+                });
+            };
+            if !seen.insert(i) {
+                return Err(CoreError::InvalidParameter {
+                    name: "point_ids",
+                    reason: format!("{}: point `{id}` is listed twice", ctx()),
+                });
+            }
+            members.push(i);
+        }
+        let fit = fitter.fit(points, &members, &g.name, RegionKind::Group, None, opts)?;
+        out.push(fit.estimate);
+    }
+    Ok(out)
+}
+
+/// How an estimate of `kind` called `label` is named in error messages.
+pub(crate) fn context(kind: RegionKind, label: &str) -> String {
+    match kind {
+        RegionKind::Group => format!("group `{label}`"),
+        RegionKind::Neighbourhood => format!("neighbourhood `{label}`"),
+        RegionKind::Network => "network".to_owned(),
+        RegionKind::Triangle | RegionKind::Tetrahedron => format!("element `{label}`"),
+        RegionKind::GridNode => format!("grid node `{label}`"),
+    }
+}
+
+/// A fit with the extra numbers the whole-network split needs.
+pub(crate) struct FitOutput<const D: usize> {
+    /// The estimate handed to callers.
+    pub estimate: GradientEstimate<D>,
+    /// Variance of each component of `t`, m² (same scaling as `cov_gradient`).
+    pub var_translation: [f64; D],
+}
+
+/// Reusable work buffers of the fit, so that many small fits do not reallocate.
+pub(crate) struct Fitter<const D: usize> {
+    kept: Vec<usize>,
+    w: Vec<[f64; D]>,
+    wbar: Vec<f64>,
+    d: Vec<[f64; D]>,
+}
+
+impl<const D: usize> Fitter<D> {
+    pub(crate) fn new() -> Self {
+        Self {
+            kept: Vec::new(),
+            w: Vec::new(),
+            wbar: Vec::new(),
+            d: Vec::new(),
+        }
+    }
+
+    /// The fit itself. Options are assumed validated; members in range and distinct.
+    pub(crate) fn fit(
+        &mut self,
+        points: &PointSet<D>,
+        members: &[usize],
+        label: &str,
+        kind: RegionKind,
+        centre: Option<[f64; D]>,
+        opts: &FitOptions,
+    ) -> Result<FitOutput<D>> {
+        if D != 2 && D != 3 {
+            return Err(CoreError::InvalidParameter {
+                name: "dimension",
+                reason: format!("{D} is not 2 or 3"),
+            });
+        }
+        let pts = points.points();
+        let needed = D + 1;
+        if members.len() < needed {
+            return Err(CoreError::TooFewPoints {
+                context: context(kind, label),
+                needed,
+                got: members.len(),
+            });
+        }
+        if let Some(c) = centre
+            && c.iter().any(|v| !v.is_finite())
+        {
+            return Err(CoreError::InvalidParameter {
+                name: "centre",
+                reason: format!("{}: centre is not finite", context(kind, label)),
+            });
+        }
+        let dw = opts.distance_weight;
+        let centre = match (centre, dw) {
+            (Some(c), _) => c,
+            (None, DistanceWeight::None) => [0.0; D],
+            (None, _) => plain_centroid(points, members),
+        };
+
+        // Weights; points with zero weight drop out.
+        self.kept.clear();
+        self.w.clear();
+        self.wbar.clear();
+        for &m in members {
+            let p = &pts[m];
+            let delta = match dw {
+                DistanceWeight::None => 1.0,
+                _ => {
+                    let mut d2 = 0.0;
+                    for k in 0..D {
+                        let e = p.x[k] - centre[k];
+                        d2 += e * e;
+                    }
+                    dw.weight(d2)
+                }
+            };
+            if delta.is_nan() || delta <= 0.0 {
+                continue;
+            }
+            let mut w = [delta; D];
+            if opts.use_precision
+                && let Some(s) = p.sigma
+            {
+                for k in 0..D {
+                    w[k] = delta / (s[k] * s[k]);
+                    if !w[k].is_finite() {
+                        return Err(CoreError::InvalidParameter {
+                            name: "sigma",
+                            reason: format!(
+                                "{}: point `{}`: standard deviation {} m is too small to form a weight 1/σ²",
+                                context(kind, label),
+                                p.id,
+                                s[k]
+                            ),
+                        });
+                    }
+                }
+            }
+            self.kept.push(m);
+            self.wbar.push(w.iter().sum::<f64>() / D as f64);
+            self.w.push(w);
+        }
+        let n = self.kept.len();
+        if n == 0 {
+            return Err(CoreError::InvalidParameter {
+                name: "distance_weight",
+                reason: format!(
+                    "{}: every one of the {} points has zero distance weight ({dw:?}); nothing to fit",
+                    context(kind, label),
+                    members.len()
+                ),
+            });
+        }
+        if n < needed {
+            return Err(CoreError::TooFewPoints {
+                context: format!("{} (points with non-zero weight)", context(kind, label)),
+                needed,
+                got: n,
+            });
+        }
+
+        // Weighted centroid, accumulated relative to the first point for accuracy.
+        let x0 = pts[self.kept[0]].x;
+        let mut wsum = 0.0;
+        let mut acc = [0.0; D];
+        for (q, &m) in self.kept.iter().enumerate() {
+            let wb = self.wbar[q];
+            wsum += wb;
+            for k in 0..D {
+                acc[k] += wb * (pts[m].x[k] - x0[k]);
+            }
+        }
+        let mut xbar = [0.0; D];
+        for k in 0..D {
+            xbar[k] = x0[k] + acc[k] / wsum;
+        }
+
+        // Centred offsets and the moment matrix.
+        self.d.clear();
+        let mut mm = [[0.0; 3]; 3];
+        for (q, &m) in self.kept.iter().enumerate() {
+            let mut d = [0.0; D];
+            for k in 0..D {
+                d[k] = pts[m].x[k] - xbar[k];
+            }
+            let wb = self.wbar[q];
+            for a in 0..D {
+                for b in 0..D {
+                    mm[a][b] += wb * d[a] * d[b];
+                }
+            }
+            self.d.push(d);
+        }
+        let trace: f64 = (0..D).map(|k| mm[k][k]).sum();
+        let spread = (trace / wsum).sqrt();
+        let mag = xbar.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
+        let eig = sorted_eigenvalues::<D>(&mm)?;
+        let lmax = eig[0];
+        let lmin = eig[D - 1];
+        let condition = if lmax > 0.0 { lmin / lmax } else { 0.0 };
+        if spread.is_nan() || spread <= COINCIDENT_REL * mag {
+            return Err(CoreError::DegenerateGeometry {
+                context: context(kind, label),
+                shape: "coincident",
+                condition,
+            });
+        }
+        if condition.is_nan() || condition < opts.min_condition || condition <= 0.0 {
+            let mid = eig[1] / lmax;
+            let shape = if D == 2 || mid.is_nan() || mid < opts.min_condition {
+                "collinear"
+            } else {
+                "coplanar"
+            };
+            return Err(CoreError::DegenerateGeometry {
+                context: context(kind, label),
+                shape,
+                condition,
+            });
+        }
+
+        // One regression per displacement component on [1, d/s].
+        let s = spread;
+        let mut gradient = SMatrix::<f64, D, D>::zeros();
+        let mut t = [0.0; D];
+        let mut inv_blocks = [[[0.0; 4]; 4]; 3];
+        for i in 0..D {
+            let mut nm = [[0.0; 4]; 4];
+            let mut rhs = [0.0; 4];
+            for q in 0..n {
+                let w = self.w[q][i];
+                let mut a = [1.0; 4];
+                for k in 0..D {
+                    a[k + 1] = self.d[q][k] / s;
+                }
+                let u = pts[self.kept[q]].u[i];
+                for r in 0..=D {
+                    rhs[r] += w * a[r] * u;
+                    for c in 0..=r {
+                        nm[r][c] += w * a[r] * a[c];
+                    }
+                }
+            }
+            for r in 0..=D {
+                for c in 0..r {
+                    nm[c][r] = nm[r][c];
+                }
+            }
+            let Some(inv) = spd_inverse(&nm, D + 1) else {
+                let shape = if D == 2 { "collinear" } else { "coplanar" };
+                return Err(CoreError::DegenerateGeometry {
+                    context: context(kind, label),
+                    shape,
+                    condition,
+                });
+            };
+            let mut beta = [0.0; 4];
+            for r in 0..=D {
+                beta[r] = (0..=D).map(|c| inv[r][c] * rhs[c]).sum();
+            }
+            // One step of iterative refinement on the residuals: recovers the digits the
+            // normal equations lose on poorly shaped (but accepted) groups.
+            let mut rhs2 = [0.0; 4];
+            for q in 0..n {
+                let w = self.w[q][i];
+                let mut a = [1.0; 4];
+                for k in 0..D {
+                    a[k + 1] = self.d[q][k] / s;
+                }
+                let fitted: f64 = (0..=D).map(|r| a[r] * beta[r]).sum();
+                let res = pts[self.kept[q]].u[i] - fitted;
+                for r in 0..=D {
+                    rhs2[r] += w * a[r] * res;
+                }
+            }
+            for r in 0..=D {
+                beta[r] += (0..=D).map(|c| inv[r][c] * rhs2[c]).sum::<f64>();
+            }
+            t[i] = beta[0];
+            for j in 0..D {
+                gradient[(i, j)] = beta[j + 1] / s;
+            }
+            inv_blocks[i] = inv;
+        }
+
+        // Residuals and vᵀPv.
+        let mut residuals = Vec::with_capacity(n);
+        let mut vtpv = 0.0;
+        for q in 0..n {
+            let p = &pts[self.kept[q]];
+            let mut v = [0.0; D];
+            for i in 0..D {
+                let mut fitted = t[i];
+                for j in 0..D {
+                    fitted += gradient[(i, j)] * self.d[q][j];
+                }
+                v[i] = p.u[i] - fitted;
+                vtpv += self.w[q][i] * v[i] * v[i];
+            }
+            residuals.push(v);
+        }
+        let redundancy = n * D - D * (D + 1);
+        let exact = redundancy == 0;
+        let variance_factor = (!exact).then(|| vtpv / redundancy as f64);
+        let factor = variance_factor.unwrap_or(1.0);
+
+        let mut cov = DMatrix::<f64>::zeros(D * D, D * D);
+        let mut var_translation = [0.0; D];
+        for i in 0..D {
+            let inv = &inv_blocks[i];
+            var_translation[i] = factor * inv[0][0];
+            for j in 0..D {
+                for k in 0..D {
+                    cov[(i * D + j, i * D + k)] = factor * inv[j + 1][k + 1] / (s * s);
+                }
+            }
+        }
+
+        Ok(FitOutput {
+            estimate: GradientEstimate {
+                label: label.to_owned(),
+                kind,
+                members: self.kept.clone(),
+                centroid: xbar,
+                gradient,
+                translation: Some(t),
+                fit: Some(FitStats {
+                    n_points: n,
+                    redundancy,
+                    exact,
+                    variance_factor,
+                    residuals,
+                    cov_gradient: cov,
+                }),
+            },
+            var_translation,
+        })
+    }
+}
+
+/// Unweighted centroid of the members, metres (members non-empty).
+fn plain_centroid<const D: usize>(points: &PointSet<D>, members: &[usize]) -> [f64; D] {
+    let pts = points.points();
+    let x0 = pts[members[0]].x;
+    let mut acc = [0.0; D];
+    for &m in members {
+        for k in 0..D {
+            acc[k] += pts[m].x[k] - x0[k];
+        }
+    }
+    let n = members.len() as f64;
+    let mut c = [0.0; D];
+    for k in 0..D {
+        c[k] = x0[k] + acc[k] / n;
+    }
+    c
+}
+
+/// Eigenvalues of the symmetric `D×D` block of `m`, sorted descending, by the bounded
+/// solver of nalgebra.
+fn sorted_eigenvalues<const D: usize>(m: &[[f64; 3]; 3]) -> Result<[f64; D]> {
+    let mut out = [0.0; D];
+    let eps = f64::EPSILON;
+    if D == 2 {
+        let a = Matrix2::new(m[0][0], m[0][1], m[1][0], m[1][1]);
+        let e =
+            a.try_symmetric_eigen(eps, EIGEN_MAX_ITER)
+                .ok_or(CoreError::EigenNoConvergence {
+                    max_iter: EIGEN_MAX_ITER,
+                })?;
+        for k in 0..D {
+            out[k] = e.eigenvalues[k];
+        }
+    } else {
+        let a = Matrix3::new(
+            m[0][0], m[0][1], m[0][2], m[1][0], m[1][1], m[1][2], m[2][0], m[2][1], m[2][2],
+        );
+        let e =
+            a.try_symmetric_eigen(eps, EIGEN_MAX_ITER)
+                .ok_or(CoreError::EigenNoConvergence {
+                    max_iter: EIGEN_MAX_ITER,
+                })?;
+        for k in 0..D {
+            out[k] = e.eigenvalues[k];
+        }
+    }
+    out.sort_by(|a, b| b.total_cmp(a));
+    Ok(out)
+}
+
+/// Inverse of a symmetric positive-definite `n×n` matrix (`n ≤ 4`) by Cholesky
+/// decomposition; `None` when a pivot is not clearly positive.
+fn spd_inverse(a: &[[f64; 4]; 4], n: usize) -> Option<[[f64; 4]; 4]> {
+    let mut l = [[0.0; 4]; 4];
+    for j in 0..n {
+        let mut diag = a[j][j];
+        for k in 0..j {
+            diag -= l[j][k] * l[j][k];
+        }
+        if !diag.is_finite() || diag <= 1e-13 * a[j][j] {
+            return None;
+        }
+        let ljj = diag.sqrt();
+        l[j][j] = ljj;
+        for i in (j + 1)..n {
+            let mut v = a[i][j];
+            for k in 0..j {
+                v -= l[i][k] * l[j][k];
+            }
+            l[i][j] = v / ljj;
+        }
+    }
+    // Inverse of L (lower triangular), column by column.
+    let mut li = [[0.0; 4]; 4];
+    for c in 0..n {
+        li[c][c] = 1.0 / l[c][c];
+        for r in (c + 1)..n {
+            let mut v = 0.0;
+            for k in c..r {
+                v -= l[r][k] * li[k][c];
+            }
+            li[r][c] = v / l[r][r];
+        }
+    }
+    // A⁻¹ = L⁻ᵀ L⁻¹.
+    let mut inv = [[0.0; 4]; 4];
+    for r in 0..n {
+        for c in 0..=r {
+            let v: f64 = (r..n).map(|k| li[k][r] * li[k][c]).sum();
+            inv[r][c] = v;
+            inv[c][r] = v;
+        }
+    }
+    Some(inv)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn spd_inverse_matches_hand_inverse() {
+        // 2×2: [[4, 2], [2, 3]]⁻¹ = 1/8 · [[3, −2], [−2, 4]] (adjugate formula).
+        let mut a = [[0.0; 4]; 4];
+        a[0][0] = 4.0;
+        a[0][1] = 2.0;
+        a[1][0] = 2.0;
+        a[1][1] = 3.0;
+        let inv = spd_inverse(&a, 2).expect("positive definite");
+        let want = [[3.0 / 8.0, -0.25], [-0.25, 0.5]];
+        for r in 0..2 {
+            for c in 0..2 {
+                assert!((inv[r][c] - want[r][c]).abs() < 1e-15);
+            }
+        }
+        a[1][1] = 1.0; // singular: det = 4 − 4 = 0
+        assert!(spd_inverse(&a, 2).is_none());
+    }
+
+    #[test]
+    fn kernels_follow_their_formulas() {
+        let g = DistanceWeight::Gaussian { scale_m: 2.0 };
+        assert!((g.weight(4.0) - (-0.5f64).exp()).abs() < 1e-15);
+        let q = DistanceWeight::QuadraticDecay { radius_m: 2.0 };
+        assert!((q.weight(1.0) - 0.5625).abs() < 1e-15);
+        assert_eq!(q.weight(4.0), 0.0);
+        assert!(
+            DistanceWeight::Gaussian { scale_m: 0.0 }
+                .validate()
+                .is_err()
+        );
+        assert!(
+            DistanceWeight::QuadraticDecay { radius_m: f64::NAN }
+                .validate()
+                .is_err()
+        );
+    }
+}

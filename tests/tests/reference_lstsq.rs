@@ -1,0 +1,192 @@
+//! Cross-check of the weighted least-squares gradient fit against numpy.
+//!
+//! Source: `numpy.linalg.lstsq` on the weighted design matrix `√P·A`, `A = [1, x − c]`,
+//! and the textbook covariance `(AᵀPA)⁻¹·σ̂₀²`, `σ̂₀² = vᵀPv / r` (Ghilani & Wolf,
+//! *Adjustment Computations*). numpy centres at the plain mean `c`, kinema at the
+//! weighted centroid: `G` and its covariance do not depend on the centre, and `t` is
+//! compared after moving numpy's intercept to kinema's centroid.
+
+use std::io::Write;
+use std::process::{Command, Stdio};
+
+use kinema_core::estimate::RegionKind;
+use kinema_core::estimate::lsq::{FitOptions, fit_points};
+use kinema_core::{Point, PointSet};
+use serde_json::{Value, json};
+
+const PY: &str = r#"
+import json, sys
+import numpy as np
+d = json.load(sys.stdin)
+X = np.array(d["x"]); U = np.array(d["u"]); S = np.array(d["sigma"]); xw = np.array(d["xbar"])
+n, D = X.shape
+c = X.mean(axis=0)
+A = np.hstack([np.ones((n, 1)), X - c])
+G = np.zeros((D, D)); t = np.zeros(D); V = np.zeros((n, D))
+blocks = []; vtpv = 0.0
+for i in range(D):
+    w = 1.0 / S[:, i] ** 2
+    sw = np.sqrt(w)
+    beta = np.linalg.lstsq(A * sw[:, None], U[:, i] * sw, rcond=None)[0]
+    v = U[:, i] - A @ beta
+    V[:, i] = v
+    vtpv += float(np.sum(w * v * v))
+    G[i] = beta[1:]
+    t[i] = beta[0] + beta[1:] @ (xw - c)
+    blocks.append(np.linalg.inv(A.T @ (A * w[:, None]))[1:, 1:])
+r = n * D - D * (D + 1)
+s0 = vtpv / r
+cov = np.zeros((D * D, D * D))
+for i in range(D):
+    cov[i * D:(i + 1) * D, i * D:(i + 1) * D] = blocks[i] * s0
+print(json.dumps({"G": G.tolist(), "t": t.tolist(), "s0": s0, "cov": cov.tolist(), "v": V.tolist()}))
+"#;
+
+/// SplitMix64 (Steele, Lea & Flood, OOPSLA 2014): a seeded generator for the test data.
+struct Rng(u64);
+
+impl Rng {
+    fn uniform(&mut self) -> f64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64
+    }
+
+    fn range(&mut self, a: f64, b: f64) -> f64 {
+        a + (b - a) * self.uniform()
+    }
+}
+
+fn numpy(input: &Value) -> Value {
+    let mut child = Command::new(kinema_tests::python())
+        .args(["-c", PY])
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("start Python with numpy");
+    child
+        .stdin
+        .take()
+        .expect("stdin")
+        .write_all(input.to_string().as_bytes())
+        .expect("write to Python");
+    let out = child.wait_with_output().expect("Python finished");
+    assert!(
+        out.status.success(),
+        "numpy reference failed: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    serde_json::from_slice(&out.stdout).expect("numpy JSON")
+}
+
+fn close(got: f64, want: f64, rel: f64, abs: f64, what: &str) {
+    assert!(
+        (got - want).abs() <= rel * want.abs() + abs,
+        "{what}: kinema {got:e}, numpy {want:e}"
+    );
+}
+
+fn check<const D: usize>(seed: u64, n: usize) {
+    let mut rng = Rng(seed);
+    let offset = [2.5e5, 6.1e6, 310.0];
+    let g = [
+        [3e-4, -1e-4, 2e-4],
+        [5e-5, -2e-4, 1e-4],
+        [-3e-4, 1e-4, 4e-4],
+    ];
+    let pts: Vec<Point<D>> = (0..n)
+        .map(|k| {
+            let mut x = [0.0; D];
+            let mut u = [0.0; D];
+            let mut s = [0.0; D];
+            for a in 0..D {
+                x[a] = offset[a] + rng.range(-40.0, 40.0);
+            }
+            for a in 0..D {
+                s[a] = rng.range(5e-4, 5e-3);
+                u[a] = 0.01 * (a as f64 + 1.0) + rng.range(-3.0, 3.0) * s[a];
+                for b in 0..D {
+                    u[a] += g[a][b] * (x[b] - offset[b]);
+                }
+            }
+            Point::new(format!("R{k}"), x, u).with_sigma(s)
+        })
+        .collect();
+    let set = PointSet::new(pts).expect("valid points");
+    let members: Vec<usize> = (0..n).collect();
+    let est = fit_points(
+        &set,
+        &members,
+        "REF",
+        RegionKind::Group,
+        None,
+        &FitOptions::default(),
+    )
+    .expect("fit");
+    let fit = est.fit.as_ref().expect("stats");
+    let input = json!({
+        "x": set.points().iter().map(|p| p.x.to_vec()).collect::<Vec<_>>(),
+        "u": set.points().iter().map(|p| p.u.to_vec()).collect::<Vec<_>>(),
+        "sigma": set.points().iter().map(|p| p.sigma.expect("sigma").to_vec()).collect::<Vec<_>>(),
+        "xbar": est.centroid.to_vec(),
+    });
+    let r = numpy(&input);
+    let num = |v: &Value| v.as_f64().expect("number");
+    for i in 0..D {
+        for j in 0..D {
+            close(
+                est.gradient[(i, j)],
+                num(&r["G"][i][j]),
+                1e-8,
+                1e-14,
+                &format!("G[{i}][{j}]"),
+            );
+        }
+        let t = est.translation.expect("t");
+        close(t[i], num(&r["t"][i]), 1e-8, 1e-13, &format!("t[{i}]"));
+    }
+    close(
+        fit.variance_factor.expect("redundant"),
+        num(&r["s0"]),
+        1e-8,
+        0.0,
+        "variance factor",
+    );
+    for a in 0..D * D {
+        for b in 0..D * D {
+            close(
+                fit.cov_gradient[(a, b)],
+                num(&r["cov"][a][b]),
+                1e-7,
+                1e-22,
+                &format!("cov[{a}][{b}]"),
+            );
+        }
+    }
+    for (k, v) in fit.residuals.iter().enumerate() {
+        for a in 0..D {
+            close(
+                v[a],
+                num(&r["v"][k][a]),
+                1e-6,
+                1e-13,
+                &format!("v[{k}][{a}]"),
+            );
+        }
+    }
+}
+
+#[test]
+fn weighted_fit_matches_numpy_lstsq_2d() {
+    check::<2>(11, 9);
+    check::<2>(12, 25);
+}
+
+#[test]
+fn weighted_fit_matches_numpy_lstsq_3d() {
+    check::<3>(13, 8);
+    check::<3>(14, 30);
+}
