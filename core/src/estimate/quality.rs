@@ -280,9 +280,11 @@ impl QualityThresholds {
 
     #[inline]
     fn check(&self, shape: ElementShape, angle: f64, ratio: f64) -> Option<QualityFailure> {
-        let min_angle = (angle < self.min_angle_rad).then_some([angle, self.min_angle_rad]);
-        let aspect_ratio =
-            (ratio > self.max_aspect_ratio).then_some([ratio, self.max_aspect_ratio]);
+        // Written so that a NaN metric (overflowing coordinates) fails rather than passes.
+        let bad_angle = angle < self.min_angle_rad || angle.is_nan();
+        let bad_ratio = ratio > self.max_aspect_ratio || ratio.is_nan();
+        let min_angle = bad_angle.then_some([angle, self.min_angle_rad]);
+        let aspect_ratio = bad_ratio.then_some([ratio, self.max_aspect_ratio]);
         if min_angle.is_none() && aspect_ratio.is_none() {
             return None;
         }
