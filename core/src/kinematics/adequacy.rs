@@ -1,21 +1,26 @@
 //! Is small-strain theory adequate for this gradient at the caller's strain resolution?
 //!
-//! The small strain `ε` drops the quadratic term of the Green–Lagrange strain:
-//! `E − ε = ½GᵀG`. With `G = ε + W` that term splits into
-//! - a **rotation part** `½WᵀW`, present even for a rigid rotation: its largest
-//!   eigenvalue is `ω²/2` (2D) or `|w|²/2` (3D). A rigid rotation of 0.3°
-//!   (`ω = 5.236e-3 rad`) gives `1.37e-5`, about 14 microstrain of spurious strain;
-//! - a **strain part** `½(GᵀG − WᵀW) = ½(ε² + εW − Wε)` (symmetric), which grows with the
-//!   strain itself and its coupling to the rotation.
+//! The small strain `ε` drops the quadratic term of the Green–Lagrange strain,
+//! `E − ε = ½GᵀG`. Two sources feed that term and are judged apart:
+//! - **rotation**: the rotation part `½WᵀW` of the quadratic term, present even for a
+//!   rigid rotation; its largest eigenvalue is `ω²/2` (2D, `ω = (G[1][0] − G[0][1])/2`)
+//!   or `|w|²/2` (3D). A rigid rotation puts that much spurious strain into `ε`
+//!   (`ε = (cos θ − 1)·I`): 0.3° (`ω = 5.236e-3 rad`) gives `1.37e-5`, about
+//!   14 microstrain;
+//! - **gradient** (the strain itself): with the rotation taken out by the polar
+//!   decomposition `F = R·U`, `E = (U − I) + ½(U − I)²`; the quadratic part
+//!   `½(U − I)²` has largest eigenvalue `½·max(λi − 1)²`. It is zero for any rigid
+//!   rotation, so the two reasons do not mix.
 //!
-//! Each part is measured by its spectral norm (largest absolute eigenvalue). Small
-//! strain is adequate when both are at most `strain_resolution`.
+//! Small strain is adequate when both are at most `strain_resolution`. The whole
+//! quadratic term `‖½GᵀG‖` (spectral norm) is reported as well.
 
 use nalgebra::{Matrix2, Matrix3};
 use serde::Serialize;
 
 use super::eigen::{sym_spectral2, sym_spectral3};
-use super::small::{rotation_angle2, rotation_vector3, spin};
+use super::finite::{finite2, finite3};
+use super::small::{rotation_angle2, rotation_vector3};
 use crate::CoreError;
 
 /// Why small-strain theory is not adequate.
@@ -31,9 +36,9 @@ pub enum AdequacyReason {
         /// The resolution it was compared with (dimensionless).
         strain_resolution: f64,
     },
-    /// The strain part of the quadratic term exceeds the resolution.
+    /// The quadratic part of the rotation-free strain exceeds the resolution.
     GradientTooLarge {
-        /// Spectral norm of `½(GᵀG − WᵀW)` (dimensionless).
+        /// `½·max(λi − 1)²` (dimensionless).
         quadratic_strain: f64,
         /// The resolution it was compared with (dimensionless).
         strain_resolution: f64,
@@ -73,7 +78,7 @@ pub struct Adequacy {
     pub rotation: f64,
     /// Rotation part `|ω|²/2` of `E − ε` (dimensionless).
     pub rotation_spurious_strain: f64,
-    /// Spectral norm of the strain part `½(GᵀG − WᵀW)` (dimensionless).
+    /// Quadratic part of the rotation-free strain, `½·max(λi − 1)²` (dimensionless).
     pub gradient_quadratic_strain: f64,
     /// Spectral norm of the whole quadratic term `½GᵀG = E − ε` (dimensionless).
     pub total_quadratic_strain: f64,
@@ -118,33 +123,55 @@ fn norm3(m: &Matrix3<f64>) -> Result<f64, CoreError> {
     Ok(v.iter().fold(0.0_f64, |a, x| a.max(x.abs())))
 }
 
-/// Small-strain adequacy of a 2D gradient at `strain_resolution` (dimensionless).
-pub fn adequacy2(g: &Matrix2<f64>, strain_resolution: f64) -> Adequacy {
-    let w = spin(g);
+/// `½·max(λi − 1)²` over the principal stretches.
+fn stretch_quadratic(stretches: &[f64]) -> f64 {
+    stretches
+        .iter()
+        .fold(0.0_f64, |a, l| a.max(0.5 * (l - 1.0) * (l - 1.0)))
+}
+
+/// Verdict for a 2D gradient whose principal stretches are already known.
+pub(crate) fn adequacy2_with(g: &Matrix2<f64>, stretches: &[f64; 2], res: f64) -> Adequacy {
     let quad = g.transpose() * g * 0.5;
-    let strain_part = quad - w.transpose() * w * 0.5;
     verdict(
         rotation_angle2(g).abs(),
-        norm2(&strain_part),
+        stretch_quadratic(stretches),
         norm2(&quad),
-        strain_resolution,
+        res,
     )
+}
+
+/// Verdict for a 3D gradient whose principal stretches are already known.
+pub(crate) fn adequacy3_with(
+    g: &Matrix3<f64>,
+    stretches: &[f64; 3],
+    res: f64,
+) -> Result<Adequacy, CoreError> {
+    let quad = g.transpose() * g * 0.5;
+    let rv = rotation_vector3(g);
+    let rotation = (rv[0] * rv[0] + rv[1] * rv[1] + rv[2] * rv[2]).sqrt();
+    Ok(verdict(
+        rotation,
+        stretch_quadratic(stretches),
+        norm3(&quad)?,
+        res,
+    ))
+}
+
+/// Small-strain adequacy of a 2D gradient at `strain_resolution` (dimensionless).
+///
+/// # Errors
+/// As [`finite2`] (the stretches come from the polar decomposition).
+pub fn adequacy2(g: &Matrix2<f64>, strain_resolution: f64) -> Result<Adequacy, CoreError> {
+    let f = finite2(g)?;
+    Ok(adequacy2_with(g, &f.principal_stretches, strain_resolution))
 }
 
 /// Small-strain adequacy of a 3D gradient at `strain_resolution` (dimensionless).
 ///
 /// # Errors
-/// [`CoreError::EigenNoConvergence`] from the bounded solver.
+/// As [`finite3`].
 pub fn adequacy3(g: &Matrix3<f64>, strain_resolution: f64) -> Result<Adequacy, CoreError> {
-    let w = spin(g);
-    let quad = g.transpose() * g * 0.5;
-    let strain_part = quad - w.transpose() * w * 0.5;
-    let rv = rotation_vector3(g);
-    let rotation = (rv[0] * rv[0] + rv[1] * rv[1] + rv[2] * rv[2]).sqrt();
-    Ok(verdict(
-        rotation,
-        norm3(&strain_part)?,
-        norm3(&quad)?,
-        strain_resolution,
-    ))
+    let f = finite3(g)?;
+    adequacy3_with(g, &f.principal_stretches, strain_resolution)
 }

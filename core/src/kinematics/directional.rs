@@ -204,7 +204,11 @@ pub fn frame3(x_axis: &[f64; 3], up: &[f64; 3]) -> Result<Matrix3<f64>, CoreErro
     }
     let z = z_raw / zn;
     let y = z.cross(&x);
-    Ok(Matrix3::from_rows(&[x.transpose(), y.transpose(), z.transpose()]))
+    Ok(Matrix3::from_rows(&[
+        x.transpose(),
+        y.transpose(),
+        z.transpose(),
+    ]))
 }
 
 fn check_frame<const D: usize>(q: &SMatrix<f64, D, D>, det: f64) -> Result<(), CoreError> {
@@ -214,13 +218,13 @@ fn check_frame<const D: usize>(q: &SMatrix<f64, D, D>, det: f64) -> Result<(), C
             field: "rotation entry",
         });
     }
-    let orth = (q * q.transpose() - SMatrix::<f64, D, D>::identity()).abs().max();
+    let orth = (q * q.transpose() - SMatrix::<f64, D, D>::identity())
+        .abs()
+        .max();
     if orth > FRAME_TOL || (det - 1.0).abs() > FRAME_TOL {
         return Err(CoreError::InvalidParameter {
             name: "frame",
-            reason: format!(
-                "not a proper rotation (max |QQᵀ − I| = {orth:.3e}, det Q = {det:.6})"
-            ),
+            reason: format!("not a proper rotation (max |QQᵀ − I| = {orth:.3e}, det Q = {det:.6})"),
         });
     }
     Ok(())

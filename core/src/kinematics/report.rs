@@ -3,7 +3,7 @@
 use nalgebra::{Matrix2, Matrix3};
 use serde::Serialize;
 
-use super::adequacy::{Adequacy, adequacy2, adequacy3};
+use super::adequacy::{Adequacy, adequacy2_with, adequacy3_with};
 use super::finite::{FiniteStrain2, FiniteStrain3, finite2, finite3};
 use super::mohr::{Mohr2, Mohr3, mohr2, mohr3};
 use super::principal::{
@@ -106,6 +106,8 @@ pub fn analyze2(g: &Matrix2<f64>, opts: &KinematicsOptions) -> Result<Kinematics
     let eps = small_strain(g);
     let eps3 = embed2(&eps);
     let principal = principal2(&eps, opts.degenerate_tol);
+    let finite = finite2(g)?;
+    let adequacy = adequacy2_with(g, &finite.principal_stretches, opts.strain_resolution);
     Ok(Kinematics2 {
         gradient: arr2(g),
         strain: Strain2::from_tensor(&eps),
@@ -120,8 +122,8 @@ pub fn analyze2(g: &Matrix2<f64>, opts: &KinematicsOptions) -> Result<Kinematics
         octahedral: octahedral(&eps3),
         von_mises: von_mises_equivalent(&eps3),
         mohr: mohr2(&eps, opts.degenerate_tol),
-        finite: finite2(g)?,
-        adequacy: adequacy2(g, opts.strain_resolution),
+        finite,
+        adequacy,
     })
 }
 
@@ -134,6 +136,8 @@ pub fn analyze3(g: &Matrix3<f64>, opts: &KinematicsOptions) -> Result<Kinematics
     validate_gradient(g.iter())?;
     let eps = small_strain(g);
     let principal = principal3(&eps, opts.degenerate_tol)?;
+    let finite = finite3(g)?;
+    let adequacy = adequacy3_with(g, &finite.principal_stretches, opts.strain_resolution)?;
     Ok(Kinematics3 {
         gradient: arr3(g),
         strain: Strain3::from_tensor(&eps),
@@ -148,7 +152,7 @@ pub fn analyze3(g: &Matrix3<f64>, opts: &KinematicsOptions) -> Result<Kinematics
         principal,
         octahedral: octahedral(&eps),
         von_mises: von_mises_equivalent(&eps),
-        finite: finite3(g)?,
-        adequacy: adequacy3(g, opts.strain_resolution)?,
+        finite,
+        adequacy,
     })
 }
