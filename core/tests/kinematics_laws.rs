@@ -597,11 +597,11 @@ proptest! {
         prop_assert!(close(a.values[0], b.values[0], 1e-14 * scale));
         prop_assert!(close(a.values[1], b.values[1], 1e-14 * scale));
         // The principal angle turns with the frame (mod π) when distinct.
-        if let (Some(t1), Some(t2)) = (a.angle, b.angle) {
-            if a.gap > 1e-9 {
-                let d = (t1 - angle - t2).rem_euclid(std::f64::consts::PI);
-                prop_assert!(d < 1e-6 || std::f64::consts::PI - d < 1e-6, "angle moved by {d}");
-            }
+        if let (Some(t1), Some(t2)) = (a.angle, b.angle)
+            && a.gap > 1e-9
+        {
+            let d = (t1 - angle - t2).rem_euclid(std::f64::consts::PI);
+            prop_assert!(d < 1e-6 || std::f64::consts::PI - d < 1e-6, "angle moved by {d}");
         }
     }
 
@@ -633,8 +633,8 @@ proptest! {
         let p = k.principal;
         prop_assert!(close(k.volumetric, g.trace(), 1e-18));
         prop_assert!(close(k.volumetric, p.e1 + p.e2 + p.e3, 1e-17));
-        for i in 0..3 {
-            prop_assert!(close(k.rotation_vector[i], w3[i], 1e-18));
+        for (got, want) in k.rotation_vector.iter().zip(w3) {
+            prop_assert!(close(*got, want, 1e-18));
         }
         prop_assert!(p.e1 >= p.e2 && p.e2 >= p.e3);
     }
@@ -717,9 +717,9 @@ proptest! {
         let s = sym_eigen2(&e2, 1e-10);
         if let Some(d) = s.directions {
             let mut m = Matrix2::zeros();
-            for i in 0..2 {
-                let n = Vector2::from(d[i]);
-                m += n * n.transpose() * s.values[i];
+            for (dir, value) in d.iter().zip(s.values) {
+                let n = Vector2::from(*dir);
+                m += n * n.transpose() * value;
             }
             prop_assert!((m - e2).abs().max() < 1e-15);
         }

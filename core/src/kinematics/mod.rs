@@ -27,6 +27,10 @@ pub mod principal;
 pub mod report;
 pub mod small;
 
+/// The nalgebra version the kinematics API is written against (`Matrix2`, `Matrix3`),
+/// re-exported so callers build their inputs with the same types.
+pub use nalgebra;
+
 pub use adequacy::{Adequacy, AdequacyReason, adequacy2, adequacy3};
 pub use directional::{
     PlaneStrain2, PlaneStrain3, ShearBetween, frame2, frame3, normal_strain, on_plane2, on_plane3,
