@@ -445,6 +445,13 @@ fn shear_between_general_pair_matches_geometry() {
     assert!(shear_between(&eps, &[1.0, 0.0], &[2.0, 0.0]).is_err());
     assert!(normal_strain(&eps, &[0.0, 0.0]).is_err());
     assert!(normal_strain(&eps, &[f64::NAN, 1.0]).is_err());
+    let nan = Matrix2::new(f64::NAN, 0.0, 0.0, 0.0);
+    assert!(normal_strain(&nan, &[1.0, 0.0]).is_err());
+    assert!(matches!(
+        sym_eigen2(&nan, 1e-10),
+        Err(CoreError::NonFinite { ref id, .. }) if id == "tensor"
+    ));
+    assert!(sym_eigen3(&Matrix3::from_element(f64::INFINITY), 1e-10).is_err());
 }
 
 /// A deck-axis frame: rows orthonormal and right-handed; z′ along the vertical.
@@ -590,9 +597,9 @@ proptest! {
     /// Source: invariance of eigenvalues under similarity, any linear algebra text.
     #[test]
     fn principal_invariant_under_rotation_2d(eps in sym2(), angle in -3.2..3.2f64) {
-        let a = sym_eigen2(&eps, 1e-10);
+        let a = sym_eigen2(&eps, 1e-10).expect("finite");
         let t = transform2(&eps, &frame2(angle)).expect("rotation");
-        let b = sym_eigen2(&t, 1e-10);
+        let b = sym_eigen2(&t, 1e-10).expect("finite");
         let scale = eps.norm().max(1e-300);
         prop_assert!(close(a.values[0], b.values[0], 1e-14 * scale));
         prop_assert!(close(a.values[1], b.values[1], 1e-14 * scale));
@@ -705,7 +712,7 @@ proptest! {
         let (r, u, v) = (m2(&fs.rotation), m2(&fs.right_stretch), m2(&fs.left_stretch));
         prop_assert!((r * u - f).abs().max() < 1e-12);
         prop_assert!((v * r - f).abs().max() < 1e-12);
-        let ue = sym_eigen2(&u, 0.0);
+        let ue = sym_eigen2(&u, 0.0).expect("finite");
         prop_assert!(close(ue.values[0], fs.principal_stretches[0], 1e-12));
         prop_assert!(close(ue.values[1], fs.principal_stretches[1], 1e-12));
         prop_assert!(ue.values[1] > 0.0);
@@ -714,7 +721,7 @@ proptest! {
     /// The eigen-decomposition reconstructs ε: Σ ei·ni⊗ni = ε (2D, 3D distinct).
     #[test]
     fn eigen_reconstructs(e2 in sym2(), e3 in sym3()) {
-        let s = sym_eigen2(&e2, 1e-10);
+        let s = sym_eigen2(&e2, 1e-10).expect("finite");
         if let Some(d) = s.directions {
             let mut m = Matrix2::zeros();
             for (dir, value) in d.iter().zip(s.values) {

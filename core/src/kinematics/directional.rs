@@ -11,11 +11,13 @@
 //!   the old frame (proper rotation, `det Q = +1`). The same applies to `G` itself.
 //!
 //! Directions need not be unit vectors: they are normalised here; zero, NaN or
-//! infinite directions are rejected with a typed error.
+//! infinite directions, and tensors with NaN or infinite entries, are rejected with
+//! a typed error.
 
 use nalgebra::{Matrix2, Matrix3, SMatrix, SVector, Vector3};
 use serde::Serialize;
 
+use super::check_finite;
 use crate::CoreError;
 
 /// Tolerance on `‖QQᵀ − I‖` and `|det Q − 1|` accepted for a frame.
@@ -50,6 +52,7 @@ pub fn normal_strain<const D: usize>(
     eps: &SMatrix<f64, D, D>,
     dir: &[f64; D],
 ) -> Result<f64, CoreError> {
+    check_finite(eps.iter(), "strain", "strain entry")?;
     let n = unit(dir, "direction")?;
     Ok((n.transpose() * eps * n)[(0, 0)])
 }
@@ -80,6 +83,7 @@ pub fn shear_between<const D: usize>(
     a: &[f64; D],
     b: &[f64; D],
 ) -> Result<ShearBetween, CoreError> {
+    check_finite(eps.iter(), "strain", "strain entry")?;
     let a = unit(a, "direction_a")?;
     let b = unit(b, "direction_b")?;
     let cos0 = a.dot(&b).clamp(-1.0, 1.0);
@@ -124,6 +128,7 @@ pub struct PlaneStrain2 {
 /// # Errors
 /// Bad direction (name `normal`).
 pub fn on_plane2(eps: &Matrix2<f64>, normal: &[f64; 2]) -> Result<PlaneStrain2, CoreError> {
+    check_finite(eps.iter(), "strain", "strain entry")?;
     let n = unit(normal, "normal")?;
     let t = nalgebra::Vector2::new(-n[1], n[0]);
     let en = (n.transpose() * eps * n)[(0, 0)];
@@ -159,6 +164,7 @@ pub struct PlaneStrain3 {
 /// # Errors
 /// Bad direction (name `normal`).
 pub fn on_plane3(eps: &Matrix3<f64>, normal: &[f64; 3]) -> Result<PlaneStrain3, CoreError> {
+    check_finite(eps.iter(), "strain", "strain entry")?;
     let n = unit(normal, "normal")?;
     let t: Vector3<f64> = eps * n;
     let en = n.dot(&t);
@@ -235,6 +241,7 @@ fn check_frame<const D: usize>(q: &SMatrix<f64, D, D>, det: f64) -> Result<(), C
 /// # Errors
 /// [`CoreError::InvalidParameter`] (`frame`) if `Q` is not a proper rotation.
 pub fn transform2(t: &Matrix2<f64>, q: &Matrix2<f64>) -> Result<Matrix2<f64>, CoreError> {
+    check_finite(t.iter(), "tensor", "tensor entry")?;
     check_frame(q, q.determinant())?;
     Ok(q * t * q.transpose())
 }
@@ -244,6 +251,7 @@ pub fn transform2(t: &Matrix2<f64>, q: &Matrix2<f64>) -> Result<Matrix2<f64>, Co
 /// # Errors
 /// [`CoreError::InvalidParameter`] (`frame`) if `Q` is not a proper rotation.
 pub fn transform3(t: &Matrix3<f64>, q: &Matrix3<f64>) -> Result<Matrix3<f64>, CoreError> {
+    check_finite(t.iter(), "tensor", "tensor entry")?;
     check_frame(q, q.determinant())?;
     Ok(q * t * q.transpose())
 }

@@ -20,6 +20,7 @@ use nalgebra::{Matrix2, Matrix3, Vector3};
 use serde::Serialize;
 use std::f64::consts::FRAC_PI_2;
 
+use super::check_finite;
 use crate::CoreError;
 
 /// Iteration cap handed to `try_symmetric_eigen` for 3×3 tensors.
@@ -93,19 +94,23 @@ pub fn sym_spectral2(m: &Matrix2<f64>) -> ([f64; 2], f64) {
 /// Eigen-decomposition of a symmetric 2×2 tensor (closed form).
 ///
 /// `tol` is the absolute tolerance on `v1 − v2` below which the tensor counts as
-/// isotropic (no directions). Finite input never gives NaN; this never fails.
-pub fn sym_eigen2(m: &Matrix2<f64>, tol: f64) -> SymEigen2 {
+/// isotropic (no directions). Finite input never gives NaN.
+///
+/// # Errors
+/// [`CoreError::NonFinite`] (id `tensor`) for a NaN or infinite entry.
+pub fn sym_eigen2(m: &Matrix2<f64>, tol: f64) -> Result<SymEigen2, CoreError> {
+    check_finite(m.iter(), "tensor", "symmetric tensor entry")?;
     let (values, theta) = sym_spectral2(m);
     let gap = (values[0] - values[1]).max(0.0);
     let degenerate = gap <= tol;
     let (s, c) = theta.sin_cos();
-    SymEigen2 {
+    Ok(SymEigen2 {
         values,
         directions: (!degenerate).then_some([[c, s], [-s, c]]),
         angle: (!degenerate).then_some(theta),
         gap,
         degenerate,
-    }
+    })
 }
 
 /// Applies a scalar function spectrally: `f(M) = f(v1)·n1n1ᵀ + f(v2)·n2n2ᵀ`.
@@ -131,12 +136,7 @@ pub fn sym_fn2(m: &Matrix2<f64>, f: impl Fn(f64) -> f64) -> Matrix2<f64> {
 /// [`CoreError::EigenNoConvergence`] when the bounded solver does not converge, and
 /// [`CoreError::NonFinite`] (id `tensor`) for NaN/infinite input.
 pub fn sym_spectral3(m: &Matrix3<f64>) -> Result<([f64; 3], Matrix3<f64>), CoreError> {
-    if m.iter().any(|v| !v.is_finite()) {
-        return Err(CoreError::NonFinite {
-            id: "tensor".into(),
-            field: "symmetric tensor entry",
-        });
-    }
+    check_finite(m.iter(), "tensor", "symmetric tensor entry")?;
     let sym = (m + m.transpose()) * 0.5;
     let eig = sym
         .try_symmetric_eigen(f64::EPSILON, EIGEN_MAX_ITER)

@@ -120,6 +120,23 @@ fn validate_gradient<'a>(entries: impl Iterator<Item = &'a f64>) -> Result<(), C
     Ok(())
 }
 
+/// Rejects a tensor with a NaN or infinite entry: [`CoreError::NonFinite`] with the
+/// given `id` (e.g. `strain`, `tensor`).
+fn check_finite<'a>(
+    entries: impl IntoIterator<Item = &'a f64>,
+    id: &str,
+    field: &'static str,
+) -> Result<(), CoreError> {
+    if entries.into_iter().all(|v| v.is_finite()) {
+        Ok(())
+    } else {
+        Err(CoreError::NonFinite {
+            id: id.into(),
+            field,
+        })
+    }
+}
+
 fn arr2(m: &nalgebra::Matrix2<f64>) -> Mat2 {
     [[m[(0, 0)], m[(0, 1)]], [m[(1, 0)], m[(1, 1)]]]
 }

@@ -16,6 +16,7 @@ use serde::Serialize;
 
 use super::eigen::sym_eigen2;
 use super::principal::Principal3;
+use crate::CoreError;
 
 /// One point of a Mohr circle: the strain on one face.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
@@ -53,16 +54,19 @@ fn point(normal_strain: f64, tensor_shear: f64) -> MohrPoint {
 }
 
 /// Mohr's circle of a symmetric 2×2 strain; `degenerate_tol` as for the principal strains.
-pub fn mohr2(eps: &Matrix2<f64>, degenerate_tol: f64) -> Mohr2 {
-    let e = sym_eigen2(eps, degenerate_tol);
+///
+/// # Errors
+/// [`CoreError::NonFinite`] (id `tensor`) for a NaN or infinite entry.
+pub fn mohr2(eps: &Matrix2<f64>, degenerate_tol: f64) -> Result<Mohr2, CoreError> {
+    let e = sym_eigen2(eps, degenerate_tol)?;
     let (exx, eyy, exy) = (eps[(0, 0)], eps[(1, 1)], eps[(1, 0)]);
-    Mohr2 {
+    Ok(Mohr2 {
         centre: 0.5 * (exx + eyy),
         radius: 0.5 * (exx - eyy).hypot(2.0 * exy),
         x_face: point(exx, exy),
         y_face: point(eyy, -exy),
         principal_angle: e.angle,
-    }
+    })
 }
 
 /// One of the three 3D Mohr circles.

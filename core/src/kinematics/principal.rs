@@ -12,6 +12,8 @@
 //!   = (√2/3)·√((e1−e2)² + (e2−e3)² + (e3−e1)²)`, with `e′` the deviator. It equals
 //!   the axial strain of an isochoric uniaxial stretch `diag(ε, −ε/2, −ε/2)`, and
 //!   `ε_eq = γ_oct/√2`.
+//! - The octahedral and von Mises functions are plain arithmetic: NaN in gives NaN
+//!   out (the aggregate [`super::analyze2`] / [`super::analyze3`] validates first).
 //! - 2D states use the plane-strain embedding (`ε_zz = 0`, see [`super::small::embed2`])
 //!   for octahedral and von Mises values.
 
@@ -41,17 +43,20 @@ pub struct Principal2 {
     pub isotropic: bool,
 }
 
-/// Principal strains of a symmetric 2×2 strain tensor (closed form; never fails).
-pub fn principal2(eps: &Matrix2<f64>, degenerate_tol: f64) -> Principal2 {
-    let e = sym_eigen2(eps, degenerate_tol);
-    Principal2 {
+/// Principal strains of a symmetric 2×2 strain tensor (closed form).
+///
+/// # Errors
+/// [`CoreError::NonFinite`] (id `tensor`) for a NaN or infinite entry.
+pub fn principal2(eps: &Matrix2<f64>, degenerate_tol: f64) -> Result<Principal2, CoreError> {
+    let e = sym_eigen2(eps, degenerate_tol)?;
+    Ok(Principal2 {
         e1: e.values[0],
         e2: e.values[1],
         n1: e.directions.map(|d| d[0]),
         n2: e.directions.map(|d| d[1]),
         theta1: e.angle,
         isotropic: e.degenerate,
-    }
+    })
 }
 
 /// 3D principal strains, descending, with the directions that are well defined.
@@ -82,7 +87,8 @@ pub struct Principal3 {
 /// Sign convention of the directions: see [`super::eigen`].
 ///
 /// # Errors
-/// [`CoreError::EigenNoConvergence`] if the bounded solver fails.
+/// [`CoreError::EigenNoConvergence`] if the bounded solver fails;
+/// [`CoreError::NonFinite`] (id `tensor`) for a NaN or infinite entry.
 pub fn principal3(eps: &Matrix3<f64>, degenerate_tol: f64) -> Result<Principal3, CoreError> {
     let e = sym_eigen3(eps, degenerate_tol)?;
     Ok(Principal3 {

@@ -105,7 +105,7 @@ pub fn analyze2(g: &Matrix2<f64>, opts: &KinematicsOptions) -> Result<Kinematics
     validate_gradient(g.iter())?;
     let eps = small_strain(g);
     let eps3 = embed2(&eps);
-    let principal = principal2(&eps, opts.degenerate_tol);
+    let principal = principal2(&eps, opts.degenerate_tol)?;
     let finite = finite2(g)?;
     let adequacy = adequacy2_with(g, &finite.principal_stretches, opts.strain_resolution);
     Ok(Kinematics2 {
@@ -121,7 +121,7 @@ pub fn analyze2(g: &Matrix2<f64>, opts: &KinematicsOptions) -> Result<Kinematics
         principal,
         octahedral: octahedral(&eps3),
         von_mises: von_mises_equivalent(&eps3),
-        mohr: mohr2(&eps, opts.degenerate_tol),
+        mohr: mohr2(&eps, opts.degenerate_tol)?,
         finite,
         adequacy,
     })
