@@ -40,7 +40,7 @@ fn same_up_to_sign3(a: [f64; 3], b: [f64; 3], tol: f64) -> bool {
 // ---------------------------------------------------------------------------------
 
 /// Source: plane-strain transformation / principal strain formulas,
-/// Gere & Goodno, Mechanics of Materials, ch. 7 (strain transformation):
+/// Gere & Goodno, Mechanics of Materials, ch. 7, strain transformation (chapter number from memory):
 /// e1,2 = (εx+εy)/2 ± √(((εx−εy)/2)² + (γxy/2)²), tan 2θp = γxy/(εx−εy).
 /// Worked by hand: εx = 500e-6, εy = 100e-6, γxy = 300e-6 (εxy = 150e-6):
 /// centre = 300e-6, (εx−εy)/2 = 200e-6, R = √(200² + 150²)·1e-6 = 250e-6,
@@ -99,7 +99,7 @@ fn principal_2d_second_quadrant_angle() {
     assert_close(n1[1], -2.0 / 5f64.sqrt(), 1e-15, "n1y");
 }
 
-/// Source: Mohr's circle of strain, Beer & Johnston, Mechanics of Materials, ch. 7
+/// Source: Mohr's circle of strain, Beer & Johnston, Mechanics of Materials, ch. 7 (chapter from memory)
 /// (centre (εx+εy)/2, radius √(((εx−εy)/2)² + (γxy/2)²), point X = (εx, γxy/2),
 /// Y = (εy, −γxy/2)). Numbers of the first worked example above.
 #[test]
@@ -404,7 +404,7 @@ fn adequacy_rotation_and_gradient() {
 
 /// Change of angle between two non-perpendicular material lines, checked against the
 /// exact angle after deformation (Source: definition of shear strain as the change of
-/// angle, e.g. Malvern §4.6; exact geometry by vectors, first order in ε).
+/// angle, e.g. Malvern §4.6, from memory; exact geometry by vectors, first order in ε).
 #[test]
 fn shear_between_general_pair_matches_geometry() {
     let g = Matrix2::new(1e-5, 4e-6, -2e-6, -3e-6);
@@ -647,7 +647,7 @@ proptest! {
     }
 
     /// Rigid motion gives zero Green–Lagrange strain, J = 1, U = I, and the finite
-    /// rotation is recovered. Source: E = ½(RᵀR − I) = 0 for any rotation (Holzapfel ch. 2).
+    /// rotation is recovered. Source: E = ½(RᵀR − I) = 0 for any rotation (Holzapfel ch. 2, from memory).
     #[test]
     fn rigid_rotation_2d(theta in -3.1..3.1f64) {
         let r = Rotation2::new(theta).into_inner();
@@ -680,7 +680,7 @@ proptest! {
 
     /// F = RU = VR, R proper orthogonal, U and V symmetric positive definite, and
     /// ln λ matches the Hencky principal values. Source: polar decomposition theorem
-    /// (Holzapfel ch. 2; Ogden §2.2).
+    /// (Holzapfel ch. 2; Ogden §2.2; chapters from memory).
     #[test]
     fn polar_decomposition_reconstructs(e in proptest::array::uniform9(-0.3..0.3f64)) {
         let g = Matrix3::from_row_slice(&e);
