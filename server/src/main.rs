@@ -1,1 +1,4 @@
+//! `kinema`: command-line entry point.
+#![forbid(unsafe_code)]
+
 fn main() {}
