@@ -9,6 +9,8 @@
 //! codes and licensed practice.
 #![forbid(unsafe_code)]
 
+pub mod cli;
 pub mod input;
 pub mod output;
+pub mod pipeline;
 pub mod units;

@@ -203,14 +203,14 @@ where
             (Some(declared), Some(flag)) => InputError::UnitMismatch {
                 path: path.to_owned(),
                 line: e.line(),
-                column: e.column(),
+                column: e.column().max(1),
                 declared,
                 flag: flag.label(),
             },
             _ => InputError::Json {
                 path: path.to_owned(),
                 line: e.line(),
-                column: e.column(),
+                column: e.column().max(1),
                 message: strip_position(&e),
             },
         }),

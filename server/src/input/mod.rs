@@ -162,3 +162,6 @@ fn validate<const D: usize>(
         source,
     })
 }
+
+#[cfg(test)]
+mod tests;

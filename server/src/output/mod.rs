@@ -17,10 +17,12 @@ mod table;
 use std::io::{self, Write};
 
 use clap::ValueEnum;
+use kinema_core::estimate::Rejected;
 
 pub use self::csv::CsvSink;
 pub use self::json::JsonSink;
 pub use self::table::{TableSink, WIDTH_SAMPLE};
+use crate::input::Points;
 use crate::units::{LengthUnit, StrainUnit};
 
 /// The caution printed with every result (table footer, JSON `caution`).
@@ -109,6 +111,17 @@ pub fn rejected_row(label: String, member_ids: Vec<String>, reason: String) -> [
         Cell::List(member_ids),
         Cell::Text(reason),
     ]
+}
+
+/// The cells of one row of [`rejected_section`] for a region the core screened out:
+/// member indices become point IDs (an index outside the set is shown as `#index`).
+pub fn rejected_cells(points: &Points, r: &Rejected) -> [Cell; 3] {
+    let ids = r
+        .members
+        .iter()
+        .map(|&i| points.id(i).map_or_else(|| format!("#{i}"), str::to_owned))
+        .collect();
+    rejected_row(r.label.clone(), ids, r.reason.clone())
 }
 
 /// One cell value. Numbers are already in the column's unit.
@@ -409,6 +422,28 @@ mod tests {
         for v in [0.1, 1.0 / 3.0, 1e-300, 6.02214076e23, -2.5e-7, 123456.789] {
             assert_eq!(round_trip(v).parse::<f64>().expect("parses"), v);
         }
+    }
+
+    #[test]
+    fn rejected_members_become_point_ids() {
+        let set = kinema_core::PointSet::new(vec![
+            kinema_core::Point::new("T1", [0.0, 0.0], [0.0, 0.0]),
+            kinema_core::Point::new("T2", [1.0, 0.0], [0.0, 0.0]),
+        ])
+        .expect("valid");
+        let r = Rejected {
+            label: "E9".into(),
+            members: vec![1, 0, 7],
+            reason: "sliver".into(),
+        };
+        assert_eq!(
+            rejected_cells(&Points::Plane(set), &r),
+            [
+                Cell::Text("E9".into()),
+                Cell::List(vec!["T2".into(), "T1".into(), "#7".into()]),
+                Cell::Text("sliver".into())
+            ]
+        );
     }
 
     #[test]
