@@ -422,3 +422,25 @@ fn missing_file_is_an_io_error() {
             .starts_with("/nonexistent/kinema/points.csv: cannot read")
     );
 }
+
+#[test]
+fn demo_data_reads_in_both_formats() {
+    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../demo-requests/offline");
+    let opts = ReadOptions {
+        length_unit: MM,
+        progress: false,
+    };
+    let csv = read_points(&dir.join("points.csv"), &opts).expect("points.csv");
+    let json = read_points(&dir.join("points.json"), &opts).expect("points.json");
+    assert_eq!(
+        csv, json,
+        "the CSV and JSON demo files hold the same points"
+    );
+    assert_eq!(csv.len(), 40);
+    assert!(csv.all_have_sigma());
+    let elements = read_elements(&dir.join("elements.csv")).expect("elements.csv");
+    assert_eq!(elements.len(), 56);
+    let groups = read_groups(&dir.join("groups.csv")).expect("groups.csv");
+    assert_eq!(groups.len(), 8);
+    assert!(groups.iter().all(|g| g.point_ids.len() == 6));
+}
