@@ -1,11 +1,13 @@
 //! Points from CSV: header analysis (which form, which dimension) and a fast row loop
 //! that reuses one `ByteRecord`.
 
-use std::io::Read;
+use std::fs::File;
+use std::io::{BufReader, Read};
+use std::path::Path;
 
 use csv::{ByteRecord, ReaderBuilder, Trim};
-use kinema_core::Point;
 use kinema_core::points::validate_id;
+use kinema_core::{CoreError, Point};
 
 use super::error::{InputError, excerpt};
 use super::{Parsed, Points};
@@ -67,6 +69,7 @@ pub(crate) fn parse<R: Read>(
     file_len: u64,
     path: &str,
     unit: LengthUnit,
+    file: &Path,
 ) -> Result<Points, InputError> {
     let mut rdr = ReaderBuilder::new()
         .has_headers(true)
@@ -91,16 +94,60 @@ pub(crate) fn parse<R: Read>(
     } else {
         2
     };
-    let parsed = if dim == 2 {
+    let (parsed, id_col) = if dim == 2 {
         let layout = layout::<2>(&fields, &header, path)?;
-        let (p, l) = rows(&mut rdr, &layout, file_len, path, unit)?;
-        Parsed::Plane(p, Some(l))
+        (
+            Parsed::Plane(rows(&mut rdr, &layout, file_len, path, unit)?),
+            layout.id,
+        )
     } else {
         let layout = layout::<3>(&fields, &header, path)?;
-        let (p, l) = rows(&mut rdr, &layout, file_len, path, unit)?;
-        Parsed::Space(p, Some(l))
+        (
+            Parsed::Space(rows(&mut rdr, &layout, file_len, path, unit)?),
+            layout.id,
+        )
     };
-    parsed.validate(path)
+    drop(rdr);
+    match parsed.validate(path) {
+        Err(InputError::Core {
+            source: CoreError::DuplicatePoint { id },
+            ..
+        }) => Err(locate_duplicate(file, path, id_col, id)),
+        other => other,
+    }
+}
+
+/// A duplicate ID with the lines of its first two occurrences. The core finds the
+/// duplicate (its hash check runs anyway); only on that error path is the file read a
+/// second time for the lines, so the fast path keeps no per-row line numbers.
+fn locate_duplicate(file: &Path, path: &str, id_col: usize, id: String) -> InputError {
+    let mut found: Vec<u64> = Vec::with_capacity(2);
+    if let Ok(f) = File::open(file) {
+        let mut rdr = ReaderBuilder::new()
+            .flexible(true)
+            .trim(Trim::All)
+            .from_reader(BufReader::new(f));
+        let mut rec = ByteRecord::new();
+        while found.len() < 2 && matches!(rdr.read_byte_record(&mut rec), Ok(true)) {
+            if rec.get(id_col) == Some(id.as_bytes()) {
+                found.push(rec.position().map(csv::Position::line).unwrap_or(0));
+            }
+        }
+    }
+    match found[..] {
+        [first_line, line] => InputError::Duplicate {
+            path: path.to_owned(),
+            line,
+            first_line,
+            what: "point id".into(),
+            id,
+        },
+        // The file changed under us: report without lines.
+        _ => InputError::Core {
+            path: path.to_owned(),
+            source: CoreError::DuplicatePoint { id },
+        },
+    }
 }
 
 fn csv_error(path: &str, e: &csv::Error) -> InputError {
@@ -226,18 +273,17 @@ fn layout<const D: usize>(
     })
 }
 
-/// Read every data row. Returns the points (metres) and the line of each.
+/// Read every data row into points (metres).
 fn rows<R: Read, const D: usize>(
     rdr: &mut csv::Reader<R>,
     layout: &Layout<D>,
     file_len: u64,
     path: &str,
     unit: LengthUnit,
-) -> Result<(Vec<Point<D>>, Vec<u64>), InputError> {
+) -> Result<Vec<Point<D>>, InputError> {
     let ncols = layout.names.len();
     let mut rec = ByteRecord::new();
     let mut points: Vec<Point<D>> = Vec::new();
-    let mut lines: Vec<u64> = Vec::new();
     let header_end = rdr.position().byte();
     loop {
         match rdr.read_byte_record(&mut rec) {
@@ -252,7 +298,6 @@ fn rows<R: Read, const D: usize>(
             let estimate = file_len.saturating_sub(header_end) / row_bytes + 16;
             let estimate = usize::try_from(estimate).unwrap_or(0).min(1 << 28);
             points.reserve(estimate);
-            lines.reserve(estimate);
         }
         if rec.len() != ncols {
             let diff = rec.len().abs_diff(ncols);
@@ -314,7 +359,6 @@ fn rows<R: Read, const D: usize>(
             point.sigma = Some(s);
         }
         points.push(point);
-        lines.push(line);
     }
     if points.is_empty() {
         return Err(InputError::NoRows {
@@ -322,7 +366,7 @@ fn rows<R: Read, const D: usize>(
             what: "points",
         });
     }
-    Ok((points, lines))
+    Ok(points)
 }
 
 /// Field `col` as UTF-8 text.

@@ -115,9 +115,9 @@ pub(crate) fn parse(bytes: &[u8], path: &str, unit: LengthUnit) -> Result<Points
         });
     }
     let parsed = if c.dim == Some(3) {
-        Parsed::Space(c.space, None)
+        Parsed::Space(c.space)
     } else {
-        Parsed::Plane(c.plane, None)
+        Parsed::Plane(c.plane)
     };
     parsed.validate(path)
 }

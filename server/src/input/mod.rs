@@ -16,7 +16,6 @@ mod json_doc;
 mod json_points;
 mod source;
 
-use std::collections::HashMap;
 use std::path::Path;
 
 use kinema_core::{Point, PointSet};
@@ -106,61 +105,42 @@ pub fn read_points(path: &Path, options: &ReadOptions) -> Result<Points, InputEr
     let points = match src {
         source::Source::Json(bytes) => json_points::parse(&bytes, &display, options.length_unit)?,
         source::Source::Csv(reader, len) => {
-            csv_points::parse(reader, len, &display, options.length_unit)?
+            csv_points::parse(reader, len, &display, options.length_unit, path)?
         }
         source::Source::Blank => return Err(InputError::Empty { path: display }),
     };
     Ok(points)
 }
 
-/// Points as parsed, before validation by the core. `lines` holds the line of each
-/// point (CSV) so that a duplicate ID can be reported at its second occurrence;
-/// JSON checks duplicates while parsing and passes `None`.
+/// Points as parsed, before validation by the core.
 pub(crate) enum Parsed {
-    Plane(Vec<Point<2>>, Option<Vec<u64>>),
-    Space(Vec<Point<3>>, Option<Vec<u64>>),
+    Plane(Vec<Point<2>>),
+    Space(Vec<Point<3>>),
 }
 
 impl Parsed {
-    /// Check duplicate IDs (with lines) and validate with [`PointSet::new`].
+    /// Validate with [`PointSet::new`] (finite values, valid unique IDs, positive sigma).
+    /// A duplicate ID comes back as `InputError::Core(CoreError::DuplicatePoint)`;
+    /// the CSV reader then looks up its lines.
     pub(crate) fn validate(self, path: &str) -> Result<Points, InputError> {
+        let core = |source| InputError::Core {
+            path: path.to_owned(),
+            source,
+        };
         match self {
-            Self::Plane(p, lines) => validate(p, lines.as_deref(), path).map(Points::Plane),
-            Self::Space(p, lines) => validate(p, lines.as_deref(), path).map(Points::Space),
+            Self::Plane(p) if p.is_empty() => Err(no_points(path)),
+            Self::Space(p) if p.is_empty() => Err(no_points(path)),
+            Self::Plane(p) => PointSet::new(p).map(Points::Plane).map_err(core),
+            Self::Space(p) => PointSet::new(p).map(Points::Space).map_err(core),
         }
     }
 }
 
-fn validate<const D: usize>(
-    points: Vec<Point<D>>,
-    lines: Option<&[u64]>,
-    path: &str,
-) -> Result<PointSet<D>, InputError> {
-    if points.is_empty() {
-        return Err(InputError::NoRows {
-            path: path.to_owned(),
-            what: "points",
-        });
-    }
-    if let Some(lines) = lines {
-        let mut seen: HashMap<&str, usize> = HashMap::with_capacity(points.len());
-        for (j, p) in points.iter().enumerate() {
-            if let Some(&i) = seen.get(p.id.as_str()) {
-                return Err(InputError::Duplicate {
-                    path: path.to_owned(),
-                    line: lines.get(j).copied().unwrap_or(0),
-                    first_line: lines.get(i).copied().unwrap_or(0),
-                    what: "point id".into(),
-                    id: p.id.clone(),
-                });
-            }
-            seen.insert(p.id.as_str(), j);
-        }
-    }
-    PointSet::new(points).map_err(|source| InputError::Core {
+fn no_points(path: &str) -> InputError {
+    InputError::NoRows {
         path: path.to_owned(),
-        source,
-    })
+        what: "points",
+    }
 }
 
 #[cfg(test)]
