@@ -1,0 +1,586 @@
+//! `kinema analyze`: flags, their validation, and the run from input files to the
+//! chosen output.
+//!
+//! The run is [`run`]: [`prepare`] (flags → validated [`Request`] with the points and
+//! any element or group file read), then the output is opened, then
+//! [`crate::pipeline::run`] computes and streams the result rows into the sink.
+
+use std::fs::File;
+use std::io::{self, BufWriter, Write};
+use std::path::{Path, PathBuf};
+
+use clap::{Args, ValueEnum};
+
+use super::CliError;
+use crate::input::{self, ElementRow, GroupRows, Points, ReadOptions};
+use crate::output::{self, Cell, Header, OutputFormat};
+use crate::units::{LengthUnit, StrainUnit};
+
+/// Default `--k`.
+pub const DEFAULT_K: usize = 12;
+/// Default `--min-angle-deg`, degrees.
+pub const DEFAULT_MIN_ANGLE_DEG: f64 = 10.0;
+/// Default `--max-aspect-ratio` (dimensionless; the ratio as defined by kinema-core's
+/// triangle quality screen).
+pub const DEFAULT_MAX_ASPECT_RATIO: f64 = 20.0;
+/// Default `--strain-resolution`, dimensionless.
+pub const DEFAULT_STRAIN_RESOLUTION: f64 = 1e-6;
+
+const AFTER_HELP: &str = "\
+Input (POINTS_FILE, CSV with a header or JSON; chosen by content):
+  id,x,y[,z],ux,uy[,uz]                  reference coordinates and displacements
+  id,x_ref,y_ref[,z_ref],x_cur,y_cur[,z_cur]
+                                         reference and current coordinates; the
+                                         displacement current - reference is taken in
+                                         the declared unit (exact for realistic data),
+                                         then converted to metres once
+  optional sigma_x,sigma_y[,sigma_z]     standard deviation per axis, declared unit
+  `point_id` may stand for `id`; a z column makes the file 3D; unknown columns are
+  errors. JSON: {\"length_unit\": \"m\"|\"mm\" (optional, must agree with
+  --length-unit), \"points\": [{\"id\": \"T1\" or 1, \"x\": .., \"y\": .., \"ux\": ..,
+  \"uy\": .., [\"z\", \"uz\", \"sigma_x\", ...]}]}.
+  Point IDs: 1-64 characters of A-Z a-z 0-9 . _ -
+
+--elements FILE: CSV element_id,v0,v1,v2[,v3] or JSON {\"elements\": [{\"id\", \"vertices\"}]}
+--groups FILE:   CSV group,point_id (one row per member) or JSON
+                 {\"groups\": [{\"name\", \"point_ids\"}]}
+
+Output: per-region rows and a `rejected` section (label, members, reason). Every
+column carries its unit (CSV/JSON names end in it, e.g. exx_microstrain, theta1_deg);
+exy is tensor shear strain, gxy = 2*exy engineering shear strain; angles in degrees
+counter-clockwise from +x. JSON goes to stdout unless --output is given.
+
+Exit codes: 0 success; 2 bad input (malformed file, bad flags, data the estimators
+reject); 1 other failures (a file that cannot be read or written).
+
+Results are kinematic estimates from measured displacements, not a structural
+assessment; defer to local codes and licensed practice.";
+
+/// Estimator chosen with `--method`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum Method {
+    /// Delaunay triangulation of 2D points into constant-strain triangles, with a quality screen.
+    Delaunay,
+    /// Triangles (2D) or tetrahedra (3D) given in --elements.
+    Elements,
+    /// Weighted least-squares fit u = t + G·x per named group in --groups.
+    Groups,
+    /// Least-squares fit over the k nearest points (or all within --radius) around each point.
+    Neighbourhood,
+    /// Finite differences on points that lie on a regular grid.
+    Grid,
+    /// One homogeneous least-squares fit over the whole network.
+    Network,
+}
+
+impl Method {
+    /// Name as on the command line.
+    pub fn name(self) -> &'static str {
+        match self {
+            Self::Delaunay => "delaunay",
+            Self::Elements => "elements",
+            Self::Groups => "groups",
+            Self::Neighbourhood => "neighbourhood",
+            Self::Grid => "grid",
+            Self::Network => "network",
+        }
+    }
+
+    /// True for the least-squares estimators, which can use stated precision.
+    pub fn is_least_squares(self) -> bool {
+        matches!(self, Self::Groups | Self::Neighbourhood | Self::Network)
+    }
+}
+
+/// Distance weighting for the least-squares fits, chosen with `--weighting`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum Weighting {
+    /// Every point weighs the same (apart from `--use-precision`).
+    None,
+    /// Gaussian decay with distance d from the centre, length scale L = --weight-scale.
+    Gaussian,
+    /// Quadratic decay with distance d, reaching zero at d = L = --weight-scale.
+    Quadratic,
+}
+
+/// Flags of `kinema analyze`.
+#[derive(Debug, Clone, Args)]
+#[command(after_long_help = AFTER_HELP)]
+pub struct AnalyzeArgs {
+    /// Points file: CSV or JSON (see below).
+    #[arg(value_name = "POINTS_FILE")]
+    pub points_file: PathBuf,
+
+    /// Estimator [default: delaunay for 2D points; neighbourhood for 3D; elements or
+    /// groups when --elements or --groups is given].
+    #[arg(long, value_enum)]
+    pub method: Option<Method>,
+
+    /// Output format.
+    #[arg(long, value_enum, default_value_t = OutputFormat::Table)]
+    pub format: OutputFormat,
+
+    /// Unit of the input coordinates, displacements and standard deviations, and of
+    /// --radius and --weight-scale; also the unit of lengths in the output.
+    #[arg(long, value_enum, default_value_t = LengthUnit::Metre)]
+    pub length_unit: LengthUnit,
+
+    /// Unit of strains in the output.
+    #[arg(long, value_enum, default_value_t = StrainUnit::Microstrain)]
+    pub strain_unit: StrainUnit,
+
+    /// Write the result to FILE [default: stdout]. The file is created only after
+    /// the input has been read and checked.
+    #[arg(long, short = 'o', value_name = "FILE")]
+    pub output: Option<PathBuf>,
+
+    /// Elements for --method elements: CSV element_id,v0,v1,v2[,v3] or JSON.
+    #[arg(long, value_name = "FILE")]
+    pub elements: Option<PathBuf>,
+
+    /// Groups for --method groups: CSV group,point_id or JSON.
+    #[arg(long, value_name = "FILE")]
+    pub groups: Option<PathBuf>,
+
+    /// Neighbourhood size for --method neighbourhood: the k nearest points.
+    #[arg(long, value_name = "N", default_value_t = DEFAULT_K)]
+    pub k: usize,
+
+    /// Use all points within R (declared length unit) instead of the k nearest
+    /// (--method neighbourhood) [default: unset, k nearest].
+    #[arg(long, value_name = "R")]
+    pub radius: Option<f64>,
+
+    /// Distance weighting of the least-squares fits (groups, neighbourhood).
+    #[arg(long, value_enum, default_value_t = Weighting::None)]
+    pub weighting: Weighting,
+
+    /// Length scale L of --weighting gaussian|quadratic, declared length unit
+    /// [default: --radius when given, otherwise required].
+    #[arg(long, value_name = "L")]
+    pub weight_scale: Option<f64>,
+
+    /// Weight each point by 1/sigma^2 from its sigma_* columns (least-squares methods:
+    /// groups, neighbourhood, network); every point must have them.
+    #[arg(long)]
+    pub use_precision: bool,
+
+    /// Quality screen of triangles: reject triangles whose smallest angle is below
+    /// this, in degrees (0 ≤ value < 60).
+    #[arg(long, value_name = "DEG", default_value_t = DEFAULT_MIN_ANGLE_DEG)]
+    pub min_angle_deg: f64,
+
+    /// Quality screen of triangles: reject triangles whose aspect ratio exceeds this
+    /// (≥ 1; the ratio as defined by kinema-core's triangle quality screen).
+    #[arg(long, value_name = "RATIO", default_value_t = DEFAULT_MAX_ASPECT_RATIO)]
+    pub max_aspect_ratio: f64,
+
+    /// Strain resolution the small-strain adequacy check works to (dimensionless,
+    /// e.g. 1e-6 = 1 microstrain).
+    #[arg(long, value_name = "STRAIN", default_value_t = DEFAULT_STRAIN_RESOLUTION)]
+    pub strain_resolution: f64,
+
+    /// No progress bar (it is shown on stderr for large files when stderr is a terminal).
+    #[arg(long, short = 'q')]
+    pub quiet: bool,
+}
+
+/// Estimator parameters, validated and in core units (metres, degrees as given,
+/// dimensionless).
+#[derive(Debug, Clone, PartialEq)]
+pub struct EstimatorParams {
+    /// Neighbourhood size (k nearest), used when `radius_m` is `None`.
+    pub k: usize,
+    /// Neighbourhood radius, metres.
+    pub radius_m: Option<f64>,
+    /// Distance weighting.
+    pub weighting: Weighting,
+    /// Weighting length scale, metres; `Some` whenever `weighting` is not `None`.
+    pub weight_scale_m: Option<f64>,
+    /// Weight points by 1/σ².
+    pub use_precision: bool,
+    /// Minimum triangle angle, degrees.
+    pub min_angle_deg: f64,
+    /// Maximum triangle aspect ratio.
+    pub max_aspect_ratio: f64,
+    /// Strain resolution, dimensionless.
+    pub strain_resolution: f64,
+}
+
+/// Everything the pipeline needs: validated input, resolved method and parameters,
+/// and the output header already filled in.
+#[derive(Debug, Clone)]
+pub struct Request {
+    /// The points, metres.
+    pub points: Points,
+    /// The estimator, resolved from the flags and the dimension.
+    pub method: Method,
+    /// Elements, for [`Method::Elements`].
+    pub elements: Option<Vec<ElementRow>>,
+    /// Groups, for [`Method::Groups`].
+    pub groups: Option<Vec<GroupRows>>,
+    /// Estimator parameters in core units.
+    pub params: EstimatorParams,
+    /// Unit for lengths in the output.
+    pub length_unit: LengthUnit,
+    /// Unit for strains in the output.
+    pub strain_unit: StrainUnit,
+    /// The output header: input, method, units and the parameters that apply.
+    pub header: Header,
+}
+
+fn usage(msg: impl Into<String>) -> CliError {
+    CliError::Usage(msg.into())
+}
+
+/// A finite positive value, or a usage error naming the flag.
+fn positive(flag: &str, v: f64) -> Result<f64, CliError> {
+    if v.is_finite() && v > 0.0 {
+        Ok(v)
+    } else {
+        Err(usage(format!("{flag} must be a positive number, got {v}")))
+    }
+}
+
+/// Check the flags that do not depend on the input.
+fn check_flags(a: &AnalyzeArgs) -> Result<(), CliError> {
+    if a.elements.is_some() && a.groups.is_some() {
+        return Err(usage("give --elements or --groups, not both"));
+    }
+    if a.k == 0 {
+        return Err(usage("--k must be at least 1"));
+    }
+    if let Some(r) = a.radius {
+        positive("--radius", r)?;
+    }
+    if let Some(l) = a.weight_scale {
+        positive("--weight-scale", l)?;
+    }
+    if !(a.min_angle_deg.is_finite() && (0.0..60.0).contains(&a.min_angle_deg)) {
+        return Err(usage(format!(
+            "--min-angle-deg must be at least 0 and below 60 (no triangle has all angles above 60°), got {}",
+            a.min_angle_deg
+        )));
+    }
+    if !(a.max_aspect_ratio.is_finite() && a.max_aspect_ratio >= 1.0) {
+        return Err(usage(format!(
+            "--max-aspect-ratio must be at least 1, got {}",
+            a.max_aspect_ratio
+        )));
+    }
+    positive("--strain-resolution", a.strain_resolution)?;
+    Ok(())
+}
+
+/// Resolve the method from the flags and the dimension, and check the combination.
+fn resolve_method(a: &AnalyzeArgs, dim: usize) -> Result<Method, CliError> {
+    let method = match a.method {
+        Some(m) => m,
+        None if a.elements.is_some() => Method::Elements,
+        None if a.groups.is_some() => Method::Groups,
+        None if dim == 2 => Method::Delaunay,
+        None => Method::Neighbourhood,
+    };
+    let name = method.name();
+    if method == Method::Elements && a.elements.is_none() {
+        return Err(usage("--method elements needs --elements FILE"));
+    }
+    if method == Method::Groups && a.groups.is_none() {
+        return Err(usage("--method groups needs --groups FILE"));
+    }
+    if a.elements.is_some() && method != Method::Elements {
+        return Err(usage(format!(
+            "--elements is used only by --method elements, not {name}"
+        )));
+    }
+    if a.groups.is_some() && method != Method::Groups {
+        return Err(usage(format!(
+            "--groups is used only by --method groups, not {name}"
+        )));
+    }
+    if method == Method::Delaunay && dim != 2 {
+        return Err(usage(
+            "--method delaunay triangulates 2D points, but the file is 3D; use elements \
+             (with --elements), neighbourhood, groups or network",
+        ));
+    }
+    if a.radius.is_some() && method != Method::Neighbourhood {
+        return Err(usage(format!(
+            "--radius is used only by --method neighbourhood, not {name}"
+        )));
+    }
+    let weighted = a.weighting != Weighting::None || a.weight_scale.is_some();
+    if weighted && !matches!(method, Method::Groups | Method::Neighbourhood) {
+        return Err(usage(format!(
+            "--weighting and --weight-scale apply to --method groups or neighbourhood, not {name}"
+        )));
+    }
+    if a.use_precision && !method.is_least_squares() {
+        return Err(usage(format!(
+            "--use-precision applies to the least-squares methods (groups, neighbourhood, network), not {name}"
+        )));
+    }
+    Ok(method)
+}
+
+/// Read and check everything named by the flags. Nothing is written.
+pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
+    check_flags(a)?;
+    let points = input::read_points(
+        &a.points_file,
+        &ReadOptions {
+            length_unit: a.length_unit,
+            progress: !a.quiet,
+        },
+    )?;
+    let dim = points.dimension();
+    let method = resolve_method(a, dim)?;
+    if a.use_precision && !points.all_have_sigma() {
+        return Err(usage(
+            "--use-precision needs sigma_x, sigma_y (and sigma_z in 3D) for every point",
+        ));
+    }
+    let unit = a.length_unit;
+    let weight_scale = match (a.weighting, a.weight_scale, a.radius) {
+        (Weighting::None, _, _) => None,
+        (_, Some(l), _) => Some(l),
+        (_, None, Some(r)) if method == Method::Neighbourhood => Some(r),
+        (w, None, _) => {
+            return Err(usage(format!(
+                "--weighting {} needs --weight-scale L (or --radius with --method neighbourhood)",
+                w.to_possible_value()
+                    .map(|v| v.get_name().to_owned())
+                    .unwrap_or_default()
+            )));
+        }
+    };
+    let elements = a
+        .elements
+        .as_deref()
+        .map(input::read_elements)
+        .transpose()?;
+    let groups = a.groups.as_deref().map(input::read_groups).transpose()?;
+    let params = EstimatorParams {
+        k: a.k,
+        radius_m: a.radius.map(|r| unit.to_metres(r)),
+        weighting: a.weighting,
+        weight_scale_m: weight_scale.map(|l| unit.to_metres(l)),
+        use_precision: a.use_precision,
+        min_angle_deg: a.min_angle_deg,
+        max_aspect_ratio: a.max_aspect_ratio,
+        strain_resolution: a.strain_resolution,
+    };
+    let mut header = Header::new(
+        a.points_file.display().to_string(),
+        points.len(),
+        dim,
+        method.name(),
+        unit,
+        a.strain_unit,
+    );
+    header.parameters = header_parameters(method, a, weight_scale);
+    Ok(Request {
+        points,
+        method,
+        elements,
+        groups,
+        params,
+        length_unit: unit,
+        strain_unit: a.strain_unit,
+        header,
+    })
+}
+
+/// The parameters that apply to `method`, named with their unit, in the declared units.
+fn header_parameters(
+    method: Method,
+    a: &AnalyzeArgs,
+    weight_scale: Option<f64>,
+) -> Vec<(String, Cell)> {
+    let u = a.length_unit.label();
+    let mut p: Vec<(String, Cell)> = Vec::new();
+    match method {
+        Method::Delaunay => {
+            p.push(("min_angle_deg".into(), Cell::Num(a.min_angle_deg)));
+            p.push(("max_aspect_ratio".into(), Cell::Num(a.max_aspect_ratio)));
+        }
+        Method::Elements => {
+            if let Some(e) = &a.elements {
+                p.push(("elements_file".into(), Cell::Text(e.display().to_string())));
+            }
+        }
+        Method::Groups => {
+            if let Some(g) = &a.groups {
+                p.push(("groups_file".into(), Cell::Text(g.display().to_string())));
+            }
+        }
+        Method::Neighbourhood => match a.radius {
+            Some(r) => p.push((format!("radius_{u}"), Cell::Num(r))),
+            None => p.push((
+                "k".into(),
+                Cell::Int(i64::try_from(a.k).unwrap_or(i64::MAX)),
+            )),
+        },
+        Method::Grid | Method::Network => {}
+    }
+    if matches!(method, Method::Groups | Method::Neighbourhood) {
+        let w = a
+            .weighting
+            .to_possible_value()
+            .map(|v| v.get_name().to_owned())
+            .unwrap_or_default();
+        p.push(("weighting".into(), Cell::Text(w)));
+        if let Some(l) = weight_scale {
+            p.push((format!("weight_scale_{u}"), Cell::Num(l)));
+        }
+    }
+    if method.is_least_squares() {
+        p.push(("use_precision".into(), Cell::Bool(a.use_precision)));
+    }
+    p.push(("strain_resolution".into(), Cell::Num(a.strain_resolution)));
+    p
+}
+
+/// Open the output: `path`, created now, or stdout; buffered.
+pub fn open_output(path: Option<&Path>) -> Result<Box<dyn Write>, CliError> {
+    match path {
+        None => Ok(Box::new(BufWriter::with_capacity(1 << 16, io::stdout()))),
+        Some(p) => {
+            let f = File::create(p).map_err(|source| CliError::Output {
+                target: p.display().to_string(),
+                source,
+            })?;
+            Ok(Box::new(BufWriter::with_capacity(1 << 16, f)))
+        }
+    }
+}
+
+/// Run `kinema analyze`: read and check, open the output, compute and write.
+pub fn run(a: &AnalyzeArgs) -> Result<(), CliError> {
+    let request = prepare(a)?;
+    let target = a
+        .output
+        .as_deref()
+        .map_or_else(|| "stdout".to_owned(), |p| p.display().to_string());
+    let out = open_output(a.output.as_deref())?;
+    let mut sink = output::sink(a.format, out);
+    crate::pipeline::run(&request, sink.as_mut(), &target)
+}
+
+#[cfg(test)]
+mod tests {
+    use clap::Parser;
+
+    use super::*;
+
+    #[derive(Parser)]
+    struct T {
+        #[command(flatten)]
+        a: AnalyzeArgs,
+    }
+
+    fn args(extra: &[&str]) -> AnalyzeArgs {
+        let mut v = vec!["t", "p.csv"];
+        v.extend_from_slice(extra);
+        T::try_parse_from(v).expect("parses").a
+    }
+
+    #[test]
+    fn defaults() {
+        let a = args(&[]);
+        assert_eq!(a.method, None);
+        assert_eq!(a.format, OutputFormat::Table);
+        assert_eq!(a.length_unit, LengthUnit::Metre);
+        assert_eq!(a.strain_unit, StrainUnit::Microstrain);
+        assert_eq!(a.k, 12);
+        assert_eq!(a.min_angle_deg, 10.0);
+        assert_eq!(a.max_aspect_ratio, 20.0);
+        assert_eq!(a.strain_resolution, 1e-6);
+        assert_eq!(a.weighting, Weighting::None);
+        assert!(!a.use_precision && !a.quiet);
+    }
+
+    #[test]
+    fn method_resolution() {
+        assert_eq!(resolve_method(&args(&[]), 2).ok(), Some(Method::Delaunay));
+        assert_eq!(
+            resolve_method(&args(&[]), 3).ok(),
+            Some(Method::Neighbourhood)
+        );
+        assert_eq!(
+            resolve_method(&args(&["--elements", "e.csv"]), 3).ok(),
+            Some(Method::Elements)
+        );
+        assert_eq!(
+            resolve_method(&args(&["--groups", "g.csv"]), 2).ok(),
+            Some(Method::Groups)
+        );
+    }
+
+    #[test]
+    fn bad_combinations_are_usage_errors() {
+        let bad = |extra: &[&str], dim: usize| {
+            let a = args(extra);
+            let e = check_flags(&a)
+                .and_then(|()| resolve_method(&a, dim))
+                .expect_err("should be refused");
+            assert_eq!(e.exit_code(), 2);
+            e.to_string()
+        };
+        assert!(bad(&["--method", "delaunay"], 3).contains("2D points"));
+        assert!(bad(&["--method", "elements"], 2).contains("needs --elements"));
+        assert!(bad(&["--method", "groups"], 2).contains("needs --groups"));
+        assert!(bad(&["--elements", "e", "--method", "network"], 2).contains("only by"));
+        assert!(bad(&["--radius", "5", "--method", "network"], 2).contains("--radius"));
+        assert!(bad(&["--use-precision"], 2).contains("least-squares"));
+        assert!(bad(&["--weighting", "gaussian"], 2).contains("--weighting"));
+        assert!(bad(&["--radius=-1"], 2).contains("positive"));
+        assert!(bad(&["--min-angle-deg", "60"], 2).contains("below 60"));
+        assert!(bad(&["--max-aspect-ratio", "0.5"], 2).contains("at least 1"));
+        assert!(bad(&["--strain-resolution", "0"], 2).contains("positive"));
+        assert!(bad(&["--k", "0"], 2).contains("at least 1"));
+        assert!(bad(&["--elements", "e", "--groups", "g"], 2).contains("not both"));
+    }
+
+    #[test]
+    fn prepare_converts_lengths_and_fills_the_header() {
+        let dir = tempfile::tempdir().expect("dir");
+        let p = dir.path().join("w.csv");
+        std::fs::write(
+            &p,
+            "id,x,y,ux,uy\nA,0,0,0,0\nB,1000,0,1,0\nC,0,1000,0,1\nD,1000,1000,1,1\n",
+        )
+        .expect("write");
+        let path = p.to_str().expect("utf-8 path");
+        let a = T::try_parse_from([
+            "t",
+            path,
+            "--length-unit",
+            "mm",
+            "--method",
+            "neighbourhood",
+            "--radius",
+            "1500",
+            "--weighting",
+            "gaussian",
+        ])
+        .expect("parses")
+        .a;
+        let r = prepare(&a).expect("prepares");
+        assert_eq!(r.method, Method::Neighbourhood);
+        assert_eq!(r.params.radius_m, Some(1.5));
+        assert_eq!(r.params.weight_scale_m, Some(1.5), "defaults to the radius");
+        assert_eq!(r.header.points, 4);
+        assert_eq!(r.header.length_unit, LengthUnit::Millimetre);
+        assert!(
+            r.header
+                .parameters
+                .contains(&("radius_mm".into(), Cell::Num(1500.0)))
+        );
+        let a = T::try_parse_from(["t", path, "--method", "network", "--use-precision"])
+            .expect("parses")
+            .a;
+        let e = prepare(&a).expect_err("no sigma columns");
+        assert!(e.to_string().contains("--use-precision needs sigma"), "{e}");
+    }
+}

@@ -1,0 +1,418 @@
+//! Points from CSV: header analysis (which form, which dimension) and a fast row loop
+//! that reuses one `ByteRecord`.
+
+use std::fs::File;
+use std::io::{BufReader, Read};
+use std::path::Path;
+
+use csv::{ByteRecord, ReaderBuilder, Trim};
+use kinema_core::points::validate_id;
+use kinema_core::{CoreError, Point};
+
+use super::error::{InputError, excerpt};
+use super::{Parsed, Points};
+use crate::units::LengthUnit;
+
+/// Names accepted in a points header, for the error message on an unknown column.
+const EXPECTED: &str = "id (or point_id), x, y, z, ux, uy, uz, or x_ref, y_ref, z_ref, \
+x_cur, y_cur, z_cur, and optionally sigma_x, sigma_y, sigma_z";
+
+/// What one header column holds; the index is the axis (0 = x, 1 = y, 2 = z).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Field {
+    Id,
+    Coord(usize),
+    Disp(usize),
+    Ref(usize),
+    Cur(usize),
+    Sigma(usize),
+}
+
+fn field_of(name: &str) -> Option<Field> {
+    Some(match name {
+        "id" | "point_id" => Field::Id,
+        "x" => Field::Coord(0),
+        "y" => Field::Coord(1),
+        "z" => Field::Coord(2),
+        "ux" => Field::Disp(0),
+        "uy" => Field::Disp(1),
+        "uz" => Field::Disp(2),
+        "x_ref" => Field::Ref(0),
+        "y_ref" => Field::Ref(1),
+        "z_ref" => Field::Ref(2),
+        "x_cur" => Field::Cur(0),
+        "y_cur" => Field::Cur(1),
+        "z_cur" => Field::Cur(2),
+        "sigma_x" => Field::Sigma(0),
+        "sigma_y" => Field::Sigma(1),
+        "sigma_z" => Field::Sigma(2),
+        _ => return None,
+    })
+}
+
+/// Column positions (0-based) for one dimension `D`, found from the header.
+struct Layout<const D: usize> {
+    id: usize,
+    /// Reference coordinate columns (`x` or `x_ref`).
+    coord: [usize; D],
+    /// Displacement columns (`ux`) or current coordinate columns (`x_cur`).
+    second: [usize; D],
+    /// True when `second` holds current coordinates rather than displacements.
+    second_is_current: bool,
+    sigma: Option<[usize; D]>,
+    names: Vec<String>,
+}
+
+/// Parse a whole CSV points file.
+pub(crate) fn parse<R: Read>(
+    reader: R,
+    file_len: u64,
+    path: &str,
+    unit: LengthUnit,
+    file: &Path,
+) -> Result<Points, InputError> {
+    let mut rdr = ReaderBuilder::new()
+        .has_headers(true)
+        .flexible(true)
+        .trim(Trim::All)
+        .buffer_capacity(1 << 16)
+        .from_reader(reader);
+    let header = rdr.byte_headers().map_err(|e| csv_error(path, &e))?.clone();
+    if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
+        return Err(InputError::Empty {
+            path: path.to_owned(),
+        });
+    }
+    let fields = header_fields(&header, path)?;
+    let dim = if fields.iter().any(|f| {
+        matches!(
+            f,
+            Field::Coord(2) | Field::Disp(2) | Field::Ref(2) | Field::Cur(2)
+        )
+    }) {
+        3
+    } else {
+        2
+    };
+    let (parsed, id_col) = if dim == 2 {
+        let layout = layout::<2>(&fields, &header, path)?;
+        (
+            Parsed::Plane(rows(&mut rdr, &layout, file_len, path, unit)?),
+            layout.id,
+        )
+    } else {
+        let layout = layout::<3>(&fields, &header, path)?;
+        (
+            Parsed::Space(rows(&mut rdr, &layout, file_len, path, unit)?),
+            layout.id,
+        )
+    };
+    drop(rdr);
+    match parsed.validate(path) {
+        Err(InputError::Core {
+            source: CoreError::DuplicatePoint { id },
+            ..
+        }) => Err(locate_duplicate(file, path, id_col, id)),
+        other => other,
+    }
+}
+
+/// A duplicate ID with the lines of its first two occurrences. The core finds the
+/// duplicate (its hash check runs anyway); only on that error path is the file read a
+/// second time for the lines, so the fast path keeps no per-row line numbers.
+fn locate_duplicate(file: &Path, path: &str, id_col: usize, id: String) -> InputError {
+    let mut found: Vec<u64> = Vec::with_capacity(2);
+    if let Ok(f) = File::open(file) {
+        let mut rdr = ReaderBuilder::new()
+            .flexible(true)
+            .trim(Trim::All)
+            .from_reader(BufReader::new(f));
+        let mut rec = ByteRecord::new();
+        while found.len() < 2 && matches!(rdr.read_byte_record(&mut rec), Ok(true)) {
+            if rec.get(id_col) == Some(id.as_bytes()) {
+                found.push(rec.position().map(csv::Position::line).unwrap_or(0));
+            }
+        }
+    }
+    match found[..] {
+        [first_line, line] => InputError::Duplicate {
+            path: path.to_owned(),
+            line,
+            first_line,
+            what: "point id".into(),
+            id,
+        },
+        // The file changed under us: report without lines.
+        _ => InputError::Core {
+            path: path.to_owned(),
+            source: CoreError::DuplicatePoint { id },
+        },
+    }
+}
+
+fn csv_error(path: &str, e: &csv::Error) -> InputError {
+    let line = e.position().map(csv::Position::line).unwrap_or(0);
+    if let csv::ErrorKind::Io(io) = e.kind() {
+        return InputError::Io {
+            path: path.to_owned(),
+            source: std::io::Error::new(io.kind(), io.to_string()),
+        };
+    }
+    InputError::Csv {
+        path: path.to_owned(),
+        line,
+        message: e.to_string(),
+    }
+}
+
+/// Map every header name to a [`Field`]; unknown and repeated names are errors.
+fn header_fields(header: &ByteRecord, path: &str) -> Result<Vec<Field>, InputError> {
+    let mut fields = Vec::with_capacity(header.len());
+    for (i, raw) in header.iter().enumerate() {
+        let name = String::from_utf8_lossy(raw);
+        let name = name.trim_start_matches('\u{feff}').trim();
+        let field = field_of(name).ok_or_else(|| InputError::UnknownColumn {
+            path: path.to_owned(),
+            column: i + 1,
+            name: excerpt(name),
+            expected: EXPECTED,
+        })?;
+        if fields.contains(&field) {
+            return Err(InputError::DuplicateColumn {
+                path: path.to_owned(),
+                column: i + 1,
+                name: name.to_owned(),
+            });
+        }
+        fields.push(field);
+    }
+    Ok(fields)
+}
+
+/// Check that the header is one complete form for dimension `D` and find the columns.
+fn layout<const D: usize>(
+    fields: &[Field],
+    header: &ByteRecord,
+    path: &str,
+) -> Result<Layout<D>, InputError> {
+    const AX: [&str; 3] = ["x", "y", "z"];
+    let bad = |reason: String| InputError::BadHeader {
+        path: path.to_owned(),
+        reason,
+    };
+    let find = |f: Field| fields.iter().position(|g| *g == f);
+    let plain = fields
+        .iter()
+        .any(|f| matches!(f, Field::Coord(_) | Field::Disp(_)));
+    let refcur = fields
+        .iter()
+        .any(|f| matches!(f, Field::Ref(_) | Field::Cur(_)));
+    if plain && refcur {
+        return Err(bad(
+            "the header mixes the displacement form (x, y, ux, uy …) with the reference/current \
+             form (x_ref, y_ref, x_cur, y_cur …); use one form"
+                .into(),
+        ));
+    }
+    let why = if D == 3 {
+        " (the file is 3D because a z column is present)"
+    } else {
+        ""
+    };
+    let need = |f: Field, name: String| {
+        find(f).ok_or_else(|| bad(format!("missing column `{name}`{why}")))
+    };
+    let id = find(Field::Id).ok_or_else(|| bad("missing column `id` (or `point_id`)".into()))?;
+    let mut coord = [0; D];
+    let mut second = [0; D];
+    for k in 0..D {
+        if refcur {
+            coord[k] = need(Field::Ref(k), format!("{}_ref", AX[k]))?;
+            second[k] = need(Field::Cur(k), format!("{}_cur", AX[k]))?;
+        } else {
+            coord[k] = need(Field::Coord(k), AX[k].to_owned())?;
+            second[k] = need(Field::Disp(k), format!("u{}", AX[k]))?;
+        }
+    }
+    let sig: Vec<Option<usize>> = (0..3).map(|k| find(Field::Sigma(k))).collect();
+    if D == 2 && sig[2].is_some() {
+        return Err(bad(
+            "column `sigma_z` in a 2D file (no z column is present)".into(),
+        ));
+    }
+    let sigma = if sig[..D].iter().all(Option::is_none) {
+        None
+    } else {
+        let mut s = [0; D];
+        for k in 0..D {
+            s[k] = sig[k].ok_or_else(|| {
+                bad(format!(
+                    "missing column `sigma_{}`: give a standard deviation for every axis or none",
+                    AX[k]
+                ))
+            })?;
+        }
+        Some(s)
+    };
+    let names = header
+        .iter()
+        .map(|n| {
+            String::from_utf8_lossy(n)
+                .trim_start_matches('\u{feff}')
+                .trim()
+                .to_owned()
+        })
+        .collect();
+    Ok(Layout {
+        id,
+        coord,
+        second,
+        second_is_current: refcur,
+        sigma,
+        names,
+    })
+}
+
+/// Read every data row into points (metres).
+fn rows<R: Read, const D: usize>(
+    rdr: &mut csv::Reader<R>,
+    layout: &Layout<D>,
+    file_len: u64,
+    path: &str,
+    unit: LengthUnit,
+) -> Result<Vec<Point<D>>, InputError> {
+    let ncols = layout.names.len();
+    let mut rec = ByteRecord::new();
+    let mut points: Vec<Point<D>> = Vec::new();
+    let header_end = rdr.position().byte();
+    loop {
+        match rdr.read_byte_record(&mut rec) {
+            Ok(true) => {}
+            Ok(false) => break,
+            Err(e) => return Err(csv_error(path, &e)),
+        }
+        let line = rec.position().map(csv::Position::line).unwrap_or(0);
+        if points.is_empty() {
+            // Pre-allocate from the width of the first row.
+            let row_bytes = rdr.position().byte().saturating_sub(header_end).max(1);
+            let estimate = file_len.saturating_sub(header_end) / row_bytes + 16;
+            let estimate = usize::try_from(estimate).unwrap_or(0).min(1 << 28);
+            points.reserve(estimate);
+        }
+        if rec.len() != ncols {
+            let diff = rec.len().abs_diff(ncols);
+            return Err(InputError::FieldCount {
+                path: path.to_owned(),
+                line,
+                expected: ncols,
+                got: rec.len(),
+                hint: if diff == 2 || diff == 3 {
+                    "; are 2D and 3D rows mixed?"
+                } else {
+                    ""
+                },
+            });
+        }
+        let id_text = text(&rec, layout.id, line, layout, path)?;
+        validate_id(id_text).map_err(|source| InputError::InvalidId {
+            path: path.to_owned(),
+            line,
+            column: layout.id + 1,
+            source,
+        })?;
+        let mut x = [0.0; D];
+        let mut u = [0.0; D];
+        for k in 0..D {
+            let a = number(&rec, layout.coord[k], line, layout, path)?;
+            let b = number(&rec, layout.second[k], line, layout, path)?;
+            x[k] = unit.to_metres(a);
+            // Current minus reference in the declared unit (exact by the Sterbenz
+            // lemma when the two are within a factor of two), converted once.
+            u[k] = unit.to_metres(if layout.second_is_current { b - a } else { b });
+            if !u[k].is_finite() {
+                // Only a difference of two huge finite values can overflow here.
+                return Err(InputError::NonFinite {
+                    path: path.to_owned(),
+                    line,
+                    column: layout.second[k] + 1,
+                    name: layout.names[layout.second[k]].clone(),
+                    text: "current − reference overflows".into(),
+                });
+            }
+        }
+        let mut point = Point::new(id_text.to_owned(), x, u);
+        if let Some(cols) = layout.sigma {
+            let mut s = [0.0; D];
+            for k in 0..D {
+                let v = number(&rec, cols[k], line, layout, path)?;
+                if v <= 0.0 {
+                    return Err(InputError::NonPositiveSigma {
+                        path: path.to_owned(),
+                        line,
+                        column: cols[k] + 1,
+                        name: layout.names[cols[k]].clone(),
+                        value: v,
+                    });
+                }
+                s[k] = unit.to_metres(v);
+            }
+            point.sigma = Some(s);
+        }
+        points.push(point);
+    }
+    if points.is_empty() {
+        return Err(InputError::NoRows {
+            path: path.to_owned(),
+            what: "points",
+        });
+    }
+    Ok(points)
+}
+
+/// Field `col` as UTF-8 text.
+fn text<'r, const D: usize>(
+    rec: &'r ByteRecord,
+    col: usize,
+    line: u64,
+    layout: &Layout<D>,
+    path: &str,
+) -> Result<&'r str, InputError> {
+    let raw = rec.get(col).unwrap_or_default();
+    std::str::from_utf8(raw).map_err(|_| InputError::Csv {
+        path: path.to_owned(),
+        line,
+        message: format!(
+            "field {} (column {}) is not valid UTF-8",
+            col + 1,
+            layout.names[col]
+        ),
+    })
+}
+
+/// Field `col` as a finite `f64` in the declared unit.
+fn number<const D: usize>(
+    rec: &ByteRecord,
+    col: usize,
+    line: u64,
+    layout: &Layout<D>,
+    path: &str,
+) -> Result<f64, InputError> {
+    let s = text(rec, col, line, layout, path)?;
+    match s.parse::<f64>() {
+        Ok(v) if v.is_finite() => Ok(v),
+        Ok(_) => Err(InputError::NonFinite {
+            path: path.to_owned(),
+            line,
+            column: col + 1,
+            name: layout.names[col].clone(),
+            text: excerpt(s),
+        }),
+        Err(_) => Err(InputError::NotANumber {
+            path: path.to_owned(),
+            line,
+            column: col + 1,
+            name: layout.names[col].clone(),
+            text: excerpt(s),
+        }),
+    }
+}
