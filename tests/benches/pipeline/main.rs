@@ -511,7 +511,7 @@ fn target_verdicts(rows: &[Row], peer_only: bool) -> Vec<String> {
             out.push(format!(
                 "Target at {TARGET_POINTS} points: kinema peak memory < {TARGET_BYTES_PER_POINT} \
                  B/pt ({}): {b:.0} B/pt — {}",
-                r.method,
+                r.method.split(" (peer").next().unwrap_or(&r.method),
                 met(b < TARGET_BYTES_PER_POINT)
             ));
         }
