@@ -20,9 +20,9 @@ use crate::units::{LengthUnit, StrainUnit};
 pub const DEFAULT_K: usize = 12;
 /// Default `--min-angle-deg`, degrees.
 pub const DEFAULT_MIN_ANGLE_DEG: f64 = 10.0;
-/// Default `--max-aspect-ratio` (dimensionless; the ratio as defined by kinema-core's
-/// triangle quality screen).
-pub const DEFAULT_MAX_ASPECT_RATIO: f64 = 20.0;
+/// Default `--max-aspect-ratio`: the radius ratio R/(2r) (1 for an equilateral triangle; 5 is
+/// reached by an isosceles 19°/19°/142° triangle), the same as kinema-core's screen default.
+pub const DEFAULT_MAX_ASPECT_RATIO: f64 = 5.0;
 /// Default `--strain-resolution`, dimensionless.
 pub const DEFAULT_STRAIN_RESOLUTION: f64 = 1e-6;
 
@@ -171,7 +171,8 @@ pub struct AnalyzeArgs {
     pub min_angle_deg: f64,
 
     /// Quality screen of triangles: reject triangles whose aspect ratio exceeds this
-    /// (≥ 1; the ratio as defined by kinema-core's triangle quality screen).
+    /// (≥ 1; radius ratio R/(2r) = circumradius / (2 · inradius), 1 for an equilateral
+    /// triangle).
     #[arg(long, value_name = "RATIO", default_value_t = DEFAULT_MAX_ASPECT_RATIO)]
     pub max_aspect_ratio: f64,
 
@@ -494,7 +495,11 @@ mod tests {
         assert_eq!(a.strain_unit, StrainUnit::Microstrain);
         assert_eq!(a.k, 12);
         assert_eq!(a.min_angle_deg, 10.0);
-        assert_eq!(a.max_aspect_ratio, 20.0);
+        assert_eq!(a.max_aspect_ratio, DEFAULT_MAX_ASPECT_RATIO);
+        // The CLI defaults are the core's screen defaults.
+        let core = kinema_core::estimate::quality::QualityThresholds::default();
+        assert_eq!(DEFAULT_MAX_ASPECT_RATIO, core.max_aspect_ratio);
+        assert!((DEFAULT_MIN_ANGLE_DEG.to_radians() - core.min_angle_rad).abs() < 1e-15);
         assert_eq!(a.strain_resolution, 1e-6);
         assert_eq!(a.weighting, Weighting::None);
         assert!(!a.use_precision && !a.quiet);

@@ -154,6 +154,9 @@ pub(crate) fn format_number(v: f64, unit: &str) -> String {
         "microstrain" => format!("{v:.1}"),
         "mm" => format!("{v:.2}"),
         "m" => format!("{v:.5}"),
+        // Rigid rotations of structures are tiny (50 µrad ≈ 0.003°): keep five decimals
+        // below one degree so they do not print as 0.00.
+        "deg" if v.abs() < 1.0 => format!("{v:.5}"),
         "deg" => format!("{v:.2}"),
         "strain" | "rad" => format!("{v:.3e}"),
         _ => {
@@ -345,5 +348,7 @@ mod tests {
         assert_eq!(format_number(1.5, ""), "1.5000");
         assert_eq!(format_number(2.0e-6, ""), "2.000e-6");
         assert_eq!(format_number(f64::INFINITY, "deg"), "-");
+        assert_eq!(format_number(-24.294, "deg"), "-24.29");
+        assert_eq!(format_number(0.0028648, "deg"), "0.00286");
     }
 }

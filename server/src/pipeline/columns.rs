@@ -1,0 +1,532 @@
+//! Output columns of `kinema analyze` and the cells of one result row.
+//!
+//! One row per region (triangle, tetrahedron, group, neighbourhood, grid node or the
+//! network): the region, its strain state from [`kinema_core::kinematics`], and the
+//! estimator's own figures (element shape, or least-squares statistics). Strains are
+//! written in the declared strain unit, lengths in the declared length unit, angles in
+//! degrees counter-clockwise from +x. Tensor shear `exy` and engineering shear
+//! `gxy = 2·exy` are separate, labelled columns.
+
+use kinema_core::estimate::FitStats;
+use kinema_core::estimate::quality::{TetrahedronQuality, TriangleQuality};
+use kinema_core::kinematics::{Adequacy, Degeneracy3, Kinematics2, Kinematics3};
+use nalgebra::DMatrix;
+
+use crate::output::{Cell, Column};
+use crate::units::{LengthUnit, StrainUnit};
+
+/// Which estimator-specific block a section carries after the strain columns.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Extra {
+    /// Element shape (Delaunay and user elements).
+    Shape,
+    /// Least-squares statistics (groups, neighbourhoods, network).
+    Fit,
+    /// Nothing more (grid finite differences).
+    None,
+}
+
+/// Units of the run, for labelling and converting.
+#[derive(Debug, Clone, Copy)]
+pub struct Units {
+    /// Declared length unit.
+    pub length: LengthUnit,
+    /// Declared strain unit.
+    pub strain: StrainUnit,
+    /// Whether fits were weighted by stated precision (makes `sigma0` dimensionless).
+    pub precision_weighted: bool,
+}
+
+impl Units {
+    fn s(&self, e: f64) -> Cell {
+        Cell::Num(self.strain.from_strain(e))
+    }
+    fn l(&self, v: f64) -> Cell {
+        Cell::Num(self.length.from_metres(v))
+    }
+}
+
+fn deg(rad: f64) -> Cell {
+    Cell::Num(rad.to_degrees())
+}
+
+fn opt_num(v: Option<f64>) -> Cell {
+    v.map_or(Cell::Empty, Cell::Num)
+}
+
+/// Columns of a 2D section: region, strain, then the `extra` block.
+pub fn columns2(u: Units, extra: Extra) -> Vec<Column> {
+    let l = u.length.label();
+    let s = u.strain.label();
+    let mut c = vec![
+        Column::new(
+            "label",
+            "",
+            "element ID, group name, point ID or grid node i,j",
+        ),
+        Column::new("members", "", "point IDs the estimate uses"),
+        Column::new("x", l, "x of the region's centroid (reference)"),
+        Column::new("y", l, "y of the region's centroid (reference)"),
+        Column::new("exx", s, "normal strain along x, extension positive"),
+        Column::new("eyy", s, "normal strain along y, extension positive"),
+        Column::new("exy", s, "tensor shear strain exy = gxy/2"),
+        Column::new(
+            "gxy",
+            s,
+            "engineering shear strain gxy = 2*exy (decrease of the right angle between x and y)",
+        ),
+        Column::new(
+            "rotation",
+            "deg",
+            "rigid rotation (duy/dx - dux/dy)/2, counter-clockwise positive",
+        ),
+        Column::new("e1", s, "major principal strain (e1 >= e2)"),
+        Column::new("e2", s, "minor principal strain"),
+        Column::new(
+            "theta1",
+            "deg",
+            "direction of e1, counter-clockwise from +x, in (-90, 90]; empty when isotropic",
+        ),
+        Column::new(
+            "isotropic",
+            "",
+            "true when e1 = e2 within tolerance: no principal direction exists",
+        ),
+        Column::new(
+            "max_shear_tensor",
+            s,
+            "maximum in-plane tensor shear strain (e1 - e2)/2 = Mohr radius",
+        ),
+        Column::new(
+            "max_shear_engineering",
+            s,
+            "maximum in-plane engineering shear strain e1 - e2",
+        ),
+        Column::new("evol", s, "volumetric (areal) strain exx + eyy = trace"),
+        Column::new(
+            "von_mises_eq",
+            s,
+            "equivalent strain sqrt(2/3 e':e') of the tensor taken as 3D with ezz = 0",
+        ),
+        Column::new("mohr_centre", s, "centre of the Mohr circle (exx + eyy)/2"),
+        Column::new(
+            "gl_exx",
+            s,
+            "Green-Lagrange strain Exx (finite strain, reference frame)",
+        ),
+        Column::new("gl_eyy", s, "Green-Lagrange strain Eyy"),
+        Column::new("gl_exy", s, "Green-Lagrange tensor shear Exy"),
+        Column::new(
+            "jacobian",
+            "",
+            "J = det(I + G), ratio of current to reference area",
+        ),
+        Column::new(
+            "small_strain_ok",
+            "",
+            "false when rotation or gradient is too large for small-strain theory at the strain resolution",
+        ),
+        Column::new(
+            "adequacy_note",
+            "",
+            "why small-strain theory is not adequate, with the numbers",
+        ),
+    ];
+    c.extend(extra_columns(u, extra, 2));
+    c
+}
+
+/// Columns of a 3D section: region, strain, then the `extra` block.
+pub fn columns3(u: Units, extra: Extra) -> Vec<Column> {
+    let l = u.length.label();
+    let s = u.strain.label();
+    let mut c = vec![
+        Column::new("label", "", "element ID, group name or point ID"),
+        Column::new("members", "", "point IDs the estimate uses"),
+        Column::new("x", l, "x of the region's centroid (reference)"),
+        Column::new("y", l, "y of the region's centroid (reference)"),
+        Column::new("z", l, "z of the region's centroid (reference)"),
+        Column::new("exx", s, "normal strain along x, extension positive"),
+        Column::new("eyy", s, "normal strain along y"),
+        Column::new("ezz", s, "normal strain along z"),
+        Column::new("exy", s, "tensor shear strain exy = gxy/2"),
+        Column::new("eyz", s, "tensor shear strain eyz = gyz/2"),
+        Column::new("exz", s, "tensor shear strain exz = gxz/2"),
+        Column::new("gxy", s, "engineering shear strain gxy = 2*exy"),
+        Column::new("gyz", s, "engineering shear strain gyz = 2*eyz"),
+        Column::new("gxz", s, "engineering shear strain gxz = 2*exz"),
+        Column::new(
+            "wx",
+            "deg",
+            "rigid rotation about x, right-hand rule (curl(u)/2)",
+        ),
+        Column::new("wy", "deg", "rigid rotation about y, right-hand rule"),
+        Column::new("wz", "deg", "rigid rotation about z, right-hand rule"),
+        Column::new("e1", s, "major principal strain (e1 >= e2 >= e3)"),
+        Column::new("e2", s, "intermediate principal strain"),
+        Column::new("e3", s, "minor principal strain"),
+        Column::new(
+            "n1x",
+            "",
+            "unit direction of e1, x (empty when e1 is repeated)",
+        ),
+        Column::new("n1y", "", "unit direction of e1, y"),
+        Column::new("n1z", "", "unit direction of e1, z"),
+        Column::new(
+            "n3x",
+            "",
+            "unit direction of e3, x (empty when e3 is repeated)",
+        ),
+        Column::new("n3y", "", "unit direction of e3, y"),
+        Column::new("n3z", "", "unit direction of e3, z"),
+        Column::new(
+            "degeneracy",
+            "",
+            "distinct, first_pair (e1 = e2), last_pair (e2 = e3) or isotropic",
+        ),
+        Column::new(
+            "max_shear_tensor",
+            s,
+            "maximum tensor shear strain (e1 - e3)/2",
+        ),
+        Column::new(
+            "max_shear_engineering",
+            s,
+            "maximum engineering shear strain e1 - e3",
+        ),
+        Column::new("evol", s, "volumetric strain exx + eyy + ezz = trace"),
+        Column::new("von_mises_eq", s, "equivalent strain sqrt(2/3 e':e')"),
+        Column::new(
+            "octahedral_shear_engineering",
+            s,
+            "engineering octahedral shear strain sqrt(8/3 J2)",
+        ),
+        Column::new(
+            "jacobian",
+            "",
+            "J = det(I + G), ratio of current to reference volume",
+        ),
+        Column::new(
+            "small_strain_ok",
+            "",
+            "false when rotation or gradient is too large for small-strain theory at the strain resolution",
+        ),
+        Column::new(
+            "adequacy_note",
+            "",
+            "why small-strain theory is not adequate, with the numbers",
+        ),
+    ];
+    c.extend(extra_columns(u, extra, 3));
+    c
+}
+
+fn extra_columns(u: Units, extra: Extra, dim: usize) -> Vec<Column> {
+    let l = u.length.label();
+    let s = u.strain.label();
+    match (extra, dim) {
+        (Extra::None, _) => vec![],
+        (Extra::Shape, 2) => vec![
+            Column::new(
+                "min_angle",
+                "deg",
+                "smallest interior angle of the triangle",
+            ),
+            Column::new(
+                "aspect_ratio",
+                "",
+                "radius ratio R/(2r), 1 for an equilateral triangle",
+            ),
+        ],
+        (Extra::Shape, _) => vec![
+            Column::new(
+                "min_dihedral",
+                "deg",
+                "smallest dihedral angle of the tetrahedron",
+            ),
+            Column::new(
+                "radius_ratio",
+                "",
+                "radius ratio R/(3r), 1 for a regular tetrahedron",
+            ),
+        ],
+        (Extra::Fit, d) => {
+            let sigma0_unit = if u.precision_weighted { "" } else { l };
+            let mut c = vec![
+                Column::new("n_points", "", "points in the least-squares fit"),
+                Column::new(
+                    "redundancy",
+                    "",
+                    "degrees of freedom n*D - D*(D+1) of the fit",
+                ),
+                Column::new(
+                    "exact_fit",
+                    "",
+                    "true when the fit has no redundancy (nothing checks the data)",
+                ),
+                Column::new(
+                    "sigma0",
+                    sigma0_unit,
+                    "a-posteriori standard deviation of unit weight (dimensionless with --use-precision, else a length)",
+                ),
+                Column::new(
+                    "sd_exx",
+                    s,
+                    "standard deviation of exx (empty for an exact fit without stated precision)",
+                ),
+                Column::new("sd_eyy", s, "standard deviation of eyy"),
+            ];
+            if d == 3 {
+                c.push(Column::new("sd_ezz", s, "standard deviation of ezz"));
+            }
+            c.push(Column::new(
+                "sd_exy",
+                s,
+                "standard deviation of the tensor shear strain exy",
+            ));
+            if d == 3 {
+                c.push(Column::new(
+                    "sd_eyz",
+                    s,
+                    "standard deviation of the tensor shear strain eyz",
+                ));
+                c.push(Column::new(
+                    "sd_exz",
+                    s,
+                    "standard deviation of the tensor shear strain exz",
+                ));
+            } else {
+                c.push(Column::new(
+                    "sd_rotation",
+                    "deg",
+                    "standard deviation of the rotation",
+                ));
+            }
+            c.push(Column::new(
+                "ux",
+                l,
+                "fitted displacement at the centroid, x",
+            ));
+            c.push(Column::new(
+                "uy",
+                l,
+                "fitted displacement at the centroid, y",
+            ));
+            if d == 3 {
+                c.push(Column::new(
+                    "uz",
+                    l,
+                    "fitted displacement at the centroid, z",
+                ));
+            }
+            c
+        }
+    }
+}
+
+fn adequacy_cells(a: &Adequacy, row: &mut Vec<Cell>) {
+    row.push(Cell::Bool(a.adequate));
+    if a.reasons.is_empty() {
+        row.push(Cell::Empty);
+    } else {
+        let text: Vec<String> = a.reasons.iter().map(ToString::to_string).collect();
+        row.push(Cell::Text(text.join("; ")));
+    }
+}
+
+/// Append the strain cells of a 2D result (after label, members and centroid).
+pub fn strain_cells2(k: &Kinematics2, u: Units, row: &mut Vec<Cell>) {
+    let st = &k.strain;
+    let p = &k.principal;
+    row.extend([
+        u.s(st.exx),
+        u.s(st.eyy),
+        u.s(st.exy),
+        u.s(st.gxy),
+        deg(k.rotation),
+        u.s(p.e1),
+        u.s(p.e2),
+        p.theta1.map_or(Cell::Empty, deg),
+        Cell::Bool(p.isotropic),
+        u.s(k.max_shear.tensor_shear),
+        u.s(k.max_shear.engineering_shear),
+        u.s(k.volumetric),
+        u.s(k.von_mises),
+        u.s(k.mohr.centre),
+        u.s(k.finite.green_lagrange[0][0]),
+        u.s(k.finite.green_lagrange[1][1]),
+        u.s(k.finite.green_lagrange[0][1]),
+        Cell::Num(k.finite.jacobian),
+    ]);
+    adequacy_cells(&k.adequacy, row);
+}
+
+fn direction_cells(n: Option<[f64; 3]>, row: &mut Vec<Cell>) {
+    match n {
+        Some(v) => row.extend(v.map(Cell::Num)),
+        None => row.extend([Cell::Empty, Cell::Empty, Cell::Empty]),
+    }
+}
+
+/// Append the strain cells of a 3D result (after label, members and centroid).
+pub fn strain_cells3(k: &Kinematics3, u: Units, row: &mut Vec<Cell>) {
+    let st = &k.strain;
+    let p = &k.principal;
+    row.extend([
+        u.s(st.exx),
+        u.s(st.eyy),
+        u.s(st.ezz),
+        u.s(st.exy),
+        u.s(st.eyz),
+        u.s(st.exz),
+        u.s(st.gxy),
+        u.s(st.gyz),
+        u.s(st.gxz),
+    ]);
+    row.extend(k.rotation_vector.map(deg));
+    row.extend([u.s(p.e1), u.s(p.e2), u.s(p.e3)]);
+    direction_cells(p.n1, row);
+    direction_cells(p.n3, row);
+    row.push(Cell::Text(
+        match p.degeneracy {
+            Degeneracy3::Distinct => "distinct",
+            Degeneracy3::FirstPair => "first_pair",
+            Degeneracy3::LastPair => "last_pair",
+            Degeneracy3::Isotropic => "isotropic",
+        }
+        .to_owned(),
+    ));
+    row.extend([
+        u.s(k.max_shear.tensor_shear),
+        u.s(k.max_shear.engineering_shear),
+        u.s(k.volumetric),
+        u.s(k.von_mises),
+        u.s(k.octahedral.engineering_shear),
+        Cell::Num(k.finite.jacobian),
+    ]);
+    adequacy_cells(&k.adequacy, row);
+}
+
+/// Append the shape cells of a triangle.
+pub fn triangle_cells(q: &TriangleQuality, row: &mut Vec<Cell>) {
+    row.extend([deg(q.min_angle_rad), Cell::Num(q.aspect_ratio)]);
+}
+
+/// Append the shape cells of a tetrahedron.
+pub fn tetrahedron_cells(q: &TetrahedronQuality, row: &mut Vec<Cell>) {
+    row.extend([deg(q.min_dihedral_rad), Cell::Num(q.radius_ratio)]);
+}
+
+/// Standard deviation of the linear combination `Σ c_k·vec(G)_k` from the covariance
+/// of `vec(G)` (row-major), or `None` when the covariance is not meaningful.
+fn sd_of(cov: &DMatrix<f64>, terms: &[(usize, f64)]) -> Option<f64> {
+    let mut var = 0.0;
+    for &(i, a) in terms {
+        for &(j, b) in terms {
+            var += a * b * cov.get((i, j)).copied()?;
+        }
+    }
+    (var.is_finite() && var >= 0.0).then(|| var.sqrt())
+}
+
+/// Append the least-squares cells of a fit in `D` dimensions. `translation` is the
+/// fitted displacement at the centroid, metres.
+pub fn fit_cells<const D: usize>(
+    f: &FitStats<D>,
+    translation: Option<[f64; D]>,
+    u: Units,
+    row: &mut Vec<Cell>,
+) {
+    let int = |v: usize| Cell::Int(i64::try_from(v).unwrap_or(i64::MAX));
+    row.push(int(f.n_points));
+    row.push(int(f.redundancy));
+    row.push(Cell::Bool(f.exact));
+    row.push(match f.variance_factor {
+        Some(v) if v >= 0.0 => {
+            let s0 = v.sqrt();
+            if u.precision_weighted {
+                Cell::Num(s0)
+            } else {
+                u.l(s0)
+            }
+        }
+        _ => Cell::Empty,
+    });
+    // An exact fit without stated precision has no meaningful covariance (a-priori
+    // factor 1 m²); leave its standard deviations empty.
+    let meaningful = !f.exact || u.precision_weighted;
+    let sd = |terms: &[(usize, f64)]| {
+        if meaningful {
+            sd_of(&f.cov_gradient, terms).map(|s| u.strain.from_strain(s))
+        } else {
+            None
+        }
+    };
+    let idx = |i: usize, j: usize| i * D + j;
+    for i in 0..D {
+        row.push(opt_num(sd(&[(idx(i, i), 1.0)])));
+    }
+    let half = |i: usize, j: usize| [(idx(i, j), 0.5), (idx(j, i), 0.5)];
+    if D == 3 {
+        row.push(opt_num(sd(&half(0, 1))));
+        row.push(opt_num(sd(&half(1, 2))));
+        row.push(opt_num(sd(&half(0, 2))));
+    } else {
+        row.push(opt_num(sd(&half(0, 1))));
+        // rotation ω = (G10 − G01)/2, in degrees
+        let rot = if meaningful {
+            sd_of(&f.cov_gradient, &[(idx(1, 0), 0.5), (idx(0, 1), -0.5)])
+        } else {
+            None
+        };
+        row.push(opt_num(rot.map(f64::to_degrees)));
+    }
+    match translation {
+        Some(t) => row.extend(t.map(|v| u.l(v))),
+        None => row.extend(std::iter::repeat_n(Cell::Empty, D)),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sd_of_linear_combination() {
+        // var(a·x + b·y) = a²var(x) + b²var(y) + 2ab cov(x, y) (propagation of variance,
+        // e.g. Ghilani & Wolf, Adjustment Computations, ch. 6).
+        let cov = DMatrix::from_row_slice(2, 2, &[4.0, 1.0, 1.0, 9.0]);
+        let got = sd_of(&cov, &[(0, 0.5), (1, 0.5)]).expect("finite");
+        let want = (0.25 * 4.0 + 0.25 * 9.0 + 2.0 * 0.25 * 1.0_f64).sqrt();
+        assert!((got - want).abs() < 1e-15);
+        assert_eq!(sd_of(&cov, &[(0, 1.0), (2, 1.0)]), None, "index outside");
+    }
+
+    #[test]
+    fn column_counts_match_cells() {
+        use kinema_core::kinematics::{KinematicsOptions, analyze2, analyze3};
+        use nalgebra::{Matrix2, Matrix3};
+        let u = Units {
+            length: LengthUnit::Millimetre,
+            strain: StrainUnit::Microstrain,
+            precision_weighted: false,
+        };
+        let k2 = analyze2(
+            &Matrix2::new(1e-4, 2e-5, -1e-5, 3e-5),
+            &KinematicsOptions::default(),
+        )
+        .expect("analyze2");
+        let mut row = Vec::new();
+        strain_cells2(&k2, u, &mut row);
+        assert_eq!(row.len() + 4, columns2(u, Extra::None).len());
+        assert_eq!(row[0], Cell::Num(100.0), "1e-4 strain = 100 microstrain");
+        let k3 = analyze3(
+            &Matrix3::new(1e-4, 2e-5, 0.0, -1e-5, 3e-5, 0.0, 0.0, 1e-6, -2e-5),
+            &KinematicsOptions::default(),
+        )
+        .expect("analyze3");
+        row.clear();
+        strain_cells3(&k3, u, &mut row);
+        assert_eq!(row.len() + 5, columns3(u, Extra::None).len());
+    }
+}

@@ -1,0 +1,568 @@
+//! The computation step of `kinema analyze`: run the chosen estimator of
+//! `kinema-core` on the prepared request and stream one row per region into the sink.
+//!
+//! Every region's gradient goes through [`kinema_core::kinematics::analyze2`] /
+//! [`analyze3`](kinema_core::kinematics::analyze3), and the row carries the strain
+//! state ([`columns`]) plus the estimator's own figures (shape or fit statistics).
+//! Regions screened out by the estimator — or whose gradient the kinematics refuse
+//! (e.g. an inverted element) — go to the `rejected` section with their reason.
+//!
+//! The Delaunay and neighbourhood methods stream: nothing per element is kept but
+//! the rejected ones, so 10⁶ points stay within a few hundred bytes per point.
+
+pub mod columns;
+pub mod lattice;
+
+use std::collections::BTreeMap;
+use std::io;
+
+use kinema_core::estimate::delaunay::{
+    ElementOutcome, delaunay_triangles, triangle_label, triangle_strains_with,
+};
+use kinema_core::estimate::elements::{ElementSpec, OrientationPolicy, element_strains};
+use kinema_core::estimate::grid::grid_gradients;
+use kinema_core::estimate::lsq::{DistanceWeight, FitOptions, Group, fit_groups};
+use kinema_core::estimate::neighbourhood::{Centres, Selection, fit_neighbourhoods_with};
+use kinema_core::estimate::network::fit_network;
+use kinema_core::estimate::quality::{QualityThresholds, TetrahedronQuality, TriangleQuality};
+use kinema_core::estimate::{GradientEstimate, Rejected};
+use kinema_core::kinematics::{KinematicsOptions, analyze2, analyze3};
+use kinema_core::{CoreError, PointSet};
+use nalgebra::SMatrix;
+
+use self::columns::{Extra, Units};
+use crate::cli::CliError;
+use crate::cli::analyze::{Method, Request, Weighting};
+use crate::input::Points;
+use crate::output::{self, Cell, Column, Footer, RowSink, Section};
+
+/// Name of the main section for each method.
+fn section_name(method: Method) -> &'static str {
+    match method {
+        Method::Delaunay | Method::Elements => "elements",
+        Method::Groups => "groups",
+        Method::Neighbourhood => "neighbourhoods",
+        Method::Grid => "grid_nodes",
+        Method::Network => "network",
+    }
+}
+
+fn extra_for(method: Method) -> Extra {
+    match method {
+        Method::Delaunay | Method::Elements => Extra::Shape,
+        Method::Groups | Method::Neighbourhood | Method::Network => Extra::Fit,
+        Method::Grid => Extra::None,
+    }
+}
+
+/// Marker for the dimension-specific parts of a row.
+pub struct Dim<const D: usize>;
+
+/// The strain columns and cells of one dimension.
+pub trait StrainRow<const D: usize> {
+    /// All columns of a main section.
+    fn columns(u: Units, extra: Extra) -> Vec<Column>;
+    /// Append the strain cells for gradient `g`; returns whether small strain is adequate.
+    fn strain_cells(
+        g: &SMatrix<f64, D, D>,
+        opts: &KinematicsOptions,
+        u: Units,
+        row: &mut Vec<Cell>,
+    ) -> Result<bool, CoreError>;
+    /// Append the shape cells of the element with these vertices (metres).
+    fn shape_cells(vertices: &[[f64; D]], row: &mut Vec<Cell>);
+}
+
+impl StrainRow<2> for Dim<2> {
+    fn columns(u: Units, extra: Extra) -> Vec<Column> {
+        columns::columns2(u, extra)
+    }
+    fn strain_cells(
+        g: &SMatrix<f64, 2, 2>,
+        opts: &KinematicsOptions,
+        u: Units,
+        row: &mut Vec<Cell>,
+    ) -> Result<bool, CoreError> {
+        let k = analyze2(g, opts)?;
+        columns::strain_cells2(&k, u, row);
+        Ok(k.adequacy.adequate)
+    }
+    fn shape_cells(v: &[[f64; 2]], row: &mut Vec<Cell>) {
+        match v {
+            [a, b, c] => {
+                columns::triangle_cells(&TriangleQuality::from_vertices([*a, *b, *c]), row)
+            }
+            _ => row.extend([Cell::Empty, Cell::Empty]),
+        }
+    }
+}
+
+impl StrainRow<3> for Dim<3> {
+    fn columns(u: Units, extra: Extra) -> Vec<Column> {
+        columns::columns3(u, extra)
+    }
+    fn strain_cells(
+        g: &SMatrix<f64, 3, 3>,
+        opts: &KinematicsOptions,
+        u: Units,
+        row: &mut Vec<Cell>,
+    ) -> Result<bool, CoreError> {
+        let k = analyze3(g, opts)?;
+        columns::strain_cells3(&k, u, row);
+        Ok(k.adequacy.adequate)
+    }
+    fn shape_cells(v: &[[f64; 3]], row: &mut Vec<Cell>) {
+        match v {
+            [a, b, c, d] => columns::tetrahedron_cells(
+                &TetrahedronQuality::from_vertices([*a, *b, *c, *d]),
+                row,
+            ),
+            _ => row.extend([Cell::Empty, Cell::Empty]),
+        }
+    }
+}
+
+/// Counts and rejections gathered while rows stream out.
+struct Tally {
+    accepted: u64,
+    inadequate: u64,
+    rejected: Vec<Rejected>,
+    by_reason: BTreeMap<String, u64>,
+}
+
+impl Tally {
+    fn new() -> Self {
+        Self {
+            accepted: 0,
+            inadequate: 0,
+            rejected: Vec::new(),
+            by_reason: BTreeMap::new(),
+        }
+    }
+
+    fn reject(&mut self, r: Rejected, kind: &str) {
+        *self.by_reason.entry(kind.to_owned()).or_insert(0) += 1;
+        self.rejected.push(r);
+    }
+}
+
+/// Writes rows for one dimension; remembers the first I/O error (the core's
+/// streaming estimators call back into closures that cannot return one).
+struct Writer<'a, const D: usize> {
+    sink: &'a mut dyn RowSink,
+    points: &'a PointSet<D>,
+    units: Units,
+    opts: KinematicsOptions,
+    extra: Extra,
+    row: Vec<Cell>,
+    io_error: Option<io::Error>,
+    tally: Tally,
+}
+
+impl<'a, const D: usize> Writer<'a, D>
+where
+    Dim<D>: StrainRow<D>,
+{
+    fn ids(&self, members: &[usize]) -> Vec<String> {
+        members
+            .iter()
+            .map(|&i| {
+                self.points
+                    .points()
+                    .get(i)
+                    .map_or_else(|| format!("#{i}"), |p| p.id.clone())
+            })
+            .collect()
+    }
+
+    /// Write one region, or reject it when the kinematics refuse its gradient.
+    /// `tail` appends the estimator-specific cells.
+    fn region(
+        &mut self,
+        label: String,
+        members: &[usize],
+        centroid: [f64; D],
+        g: &SMatrix<f64, D, D>,
+        tail: impl FnOnce(&mut Vec<Cell>),
+    ) {
+        if self.io_error.is_some() {
+            return;
+        }
+        let mut row = std::mem::take(&mut self.row);
+        row.clear();
+        row.push(Cell::Text(label));
+        row.push(Cell::List(self.ids(members)));
+        row.extend(centroid.map(|c| Cell::Num(self.units.length.from_metres(c))));
+        match <Dim<D>>::strain_cells(g, &self.opts, self.units, &mut row) {
+            Ok(adequate) => {
+                tail(&mut row);
+                self.tally.accepted += 1;
+                if !adequate {
+                    self.tally.inadequate += 1;
+                }
+                if let Err(e) = self.sink.row(&row) {
+                    self.io_error = Some(e);
+                }
+            }
+            Err(e) => {
+                let label = match row.swap_remove(0) {
+                    Cell::Text(t) => t,
+                    _ => String::new(),
+                };
+                self.tally.reject(
+                    Rejected {
+                        label,
+                        members: members.to_vec(),
+                        reason: format!("strain state not computed: {e}"),
+                    },
+                    "strain state not computed",
+                );
+            }
+        }
+        self.row = row;
+    }
+
+    fn estimate(&mut self, e: &GradientEstimate<D>) {
+        let extra = self.extra;
+        let units = self.units;
+        let shape: Vec<[f64; D]> = if extra == Extra::Shape {
+            e.members
+                .iter()
+                .filter_map(|&i| self.points.points().get(i).map(|p| p.x))
+                .collect()
+        } else {
+            Vec::new()
+        };
+        self.region(
+            e.label.clone(),
+            &e.members,
+            e.centroid,
+            &e.gradient,
+            |row| match extra {
+                Extra::Shape => <Dim<D>>::shape_cells(&shape, row),
+                Extra::Fit => match &e.fit {
+                    Some(f) => columns::fit_cells(f, e.translation, units, row),
+                    None => row.extend(std::iter::repeat_n(
+                        Cell::Empty,
+                        <Dim<D>>::columns(units, Extra::Fit).len()
+                            - <Dim<D>>::columns(units, Extra::None).len(),
+                    )),
+                },
+                Extra::None => {}
+            },
+        );
+    }
+
+    /// Write the rejected section and the footer; hand back the first I/O error.
+    fn finish(mut self, notes: Vec<String>) -> io::Result<()> {
+        if let Some(e) = self.io_error.take() {
+            return Err(e);
+        }
+        self.sink.section(output::REJECTED)?;
+        for r in &self.tally.rejected {
+            let cells = [
+                Cell::Text(r.label.clone()),
+                Cell::List(self.ids(&r.members)),
+                Cell::Text(r.reason.clone()),
+            ];
+            self.sink.row(&cells)?;
+        }
+        let mut all_notes = notes;
+        if self.tally.inadequate > 0 {
+            all_notes.push(format!(
+                "{} of {} regions: small-strain theory is not adequate at strain resolution {} \
+                 (see small_strain_ok and adequacy_note); their small-strain values carry \
+                 spurious strain, compare the Green-Lagrange columns.",
+                self.tally.inadequate, self.tally.accepted, self.opts.strain_resolution
+            ));
+        }
+        let footer = Footer {
+            accepted: self.tally.accepted,
+            rejected: self.tally.rejected.len() as u64,
+            rejected_by_reason: self.tally.by_reason.into_iter().collect(),
+            notes: all_notes,
+        };
+        self.sink.finish(&footer)
+    }
+}
+
+fn fit_options(request: &Request) -> FitOptions {
+    let p = &request.params;
+    let distance_weight = match (p.weighting, p.weight_scale_m) {
+        (Weighting::Gaussian, Some(s)) => DistanceWeight::Gaussian { scale_m: s },
+        (Weighting::Quadratic, Some(r)) => DistanceWeight::QuadraticDecay { radius_m: r },
+        _ => DistanceWeight::None,
+    };
+    FitOptions {
+        use_precision: p.use_precision,
+        distance_weight,
+        ..FitOptions::default()
+    }
+}
+
+fn thresholds(request: &Request) -> QualityThresholds {
+    QualityThresholds {
+        min_angle_rad: request.params.min_angle_deg.to_radians(),
+        max_aspect_ratio: request.params.max_aspect_ratio,
+    }
+}
+
+/// Compute the estimates for `request` and stream them into `sink`; `target` names
+/// the output (file or `stdout`) for I/O error messages.
+///
+/// Everything that can fail on the data (triangulation, a collinear group, an unknown
+/// point, a grid that is not one) is computed before the first byte is written, so a
+/// failed run leaves no half-written output; only the streaming estimators
+/// (Delaunay strains, neighbourhoods) write while they compute, and they turn a bad
+/// region into a `rejected` row instead of failing.
+pub fn run(request: &Request, sink: &mut dyn RowSink, target: &str) -> Result<(), CliError> {
+    let opts = KinematicsOptions {
+        strain_resolution: request.params.strain_resolution,
+        ..KinematicsOptions::default()
+    };
+    opts.validate()?;
+    let units = Units {
+        length: request.length_unit,
+        strain: request.strain_unit,
+        precision_weighted: request.params.use_precision,
+    };
+    let ctx = Context {
+        request,
+        units,
+        opts,
+        target,
+    };
+    match (&request.points, request.method) {
+        (Points::Plane(ps), Method::Delaunay) => {
+            let tris = delaunay_triangles(ps)?;
+            let th = thresholds(request);
+            th.validate()?;
+            ctx.emit(ps, sink, |w| {
+                stream_triangles(w, &tris, &th)?;
+                Ok(Vec::new())
+            })
+        }
+        (Points::Plane(ps), Method::Grid) => {
+            let l = lattice::lattice(ps).map_err(CliError::Usage)?;
+            let (good, bad) = grid_gradients(&l.field)?;
+            ctx.emit(ps, sink, |w| {
+                let to_points = |cells: &[usize]| -> Vec<usize> {
+                    cells
+                        .iter()
+                        .filter_map(|&c| l.cell_point.get(c).copied().flatten())
+                        .collect()
+                };
+                for mut e in good {
+                    e.members = to_points(&e.members);
+                    w.estimate(&e);
+                }
+                for mut r in bad {
+                    r.members = to_points(&r.members);
+                    w.tally.reject(r, "finite differences not possible");
+                }
+                let u = units.length;
+                Ok(vec![format!(
+                    "grid of {} x {} nodes at spacing {} x {} {}, origin ({}, {}) {}",
+                    l.field.nx,
+                    l.field.ny,
+                    u.from_metres(l.field.spacing[0]),
+                    u.from_metres(l.field.spacing[1]),
+                    u.label(),
+                    u.from_metres(l.field.origin[0]),
+                    u.from_metres(l.field.origin[1]),
+                    u.label()
+                )])
+            })
+        }
+        (Points::Space(_), Method::Delaunay) => Err(CliError::Usage(
+            "--method delaunay triangulates 2D points; the file is 3D".to_owned(),
+        )),
+        (Points::Space(_), Method::Grid) => Err(CliError::Usage(
+            "--method grid works on 2D points on a regular grid; the file is 3D".to_owned(),
+        )),
+        (Points::Plane(ps), _) => ctx.general(ps, sink),
+        (Points::Space(ps), _) => ctx.general(ps, sink),
+    }
+}
+
+/// What every method needs besides the points.
+struct Context<'a> {
+    request: &'a Request,
+    units: Units,
+    opts: KinematicsOptions,
+    target: &'a str,
+}
+
+impl Context<'_> {
+    fn out(&self, source: io::Error) -> CliError {
+        CliError::Output {
+            target: self.target.to_owned(),
+            source,
+        }
+    }
+
+    /// Open the sections, let `body` write the rows, then write the rejected regions
+    /// and the footer (with the notes `body` returns).
+    fn emit<const D: usize>(
+        &self,
+        ps: &PointSet<D>,
+        sink: &mut dyn RowSink,
+        body: impl FnOnce(&mut Writer<'_, D>) -> Result<Vec<String>, CliError>,
+    ) -> Result<(), CliError>
+    where
+        Dim<D>: StrainRow<D>,
+    {
+        let method = self.request.method;
+        let extra = extra_for(method);
+        let main = Section {
+            name: section_name(method),
+            columns: <Dim<D>>::columns(self.units, extra),
+        };
+        sink.begin(&self.request.header, &[main, output::rejected_section()])
+            .map_err(|e| self.out(e))?;
+        sink.section(section_name(method))
+            .map_err(|e| self.out(e))?;
+        let mut w = Writer {
+            sink,
+            points: ps,
+            units: self.units,
+            opts: self.opts,
+            extra,
+            row: Vec::new(),
+            io_error: None,
+            tally: Tally::new(),
+        };
+        let notes = body(&mut w)?;
+        w.finish(notes).map_err(|e| self.out(e))
+    }
+
+    /// The methods that work the same in 2D and 3D.
+    fn general<const D: usize>(
+        &self,
+        ps: &PointSet<D>,
+        sink: &mut dyn RowSink,
+    ) -> Result<(), CliError>
+    where
+        Dim<D>: StrainRow<D>,
+    {
+        let request = self.request;
+        let fo = fit_options(request);
+        match request.method {
+            Method::Elements => {
+                let specs: Vec<ElementSpec> = request
+                    .elements
+                    .iter()
+                    .flatten()
+                    .map(|e| ElementSpec::new(e.id.clone(), e.vertices.clone()))
+                    .collect();
+                let (good, bad) =
+                    element_strains(ps, &specs, OrientationPolicy::Require, &thresholds(request))?;
+                self.emit(ps, sink, |w| {
+                    good.iter().for_each(|e| w.estimate(e));
+                    bad.into_iter()
+                        .for_each(|r| w.tally.reject(r, "quality screen"));
+                    Ok(Vec::new())
+                })
+            }
+            Method::Groups => {
+                let groups: Vec<Group> = request
+                    .groups
+                    .iter()
+                    .flatten()
+                    .map(|g| Group {
+                        name: g.name.clone(),
+                        point_ids: g.point_ids.clone(),
+                    })
+                    .collect();
+                let good = fit_groups(ps, &groups, &fo)?;
+                self.emit(ps, sink, |w| {
+                    good.iter().for_each(|e| w.estimate(e));
+                    Ok(Vec::new())
+                })
+            }
+            Method::Network => {
+                let net = fit_network(ps, &fo)?;
+                self.emit(ps, sink, |w| {
+                    w.estimate(&net.estimate);
+                    Ok(Vec::new())
+                })
+            }
+            Method::Neighbourhood => {
+                let sel = match request.params.radius_m {
+                    Some(r) => Selection::Radius {
+                        radius_m: r,
+                        min_points: D + 2,
+                    },
+                    None => Selection::Nearest {
+                        k: request.params.k,
+                    },
+                };
+                // Checked here as well as in the core, because the core checks only
+                // once the header is written.
+                if let Selection::Nearest { k } = sel
+                    && (k < D + 1 || k > ps.len())
+                {
+                    {
+                        return Err(CliError::Usage(format!(
+                            "--k {k}: a {D}D neighbourhood fit needs at least {} points, and the \
+                             file holds {}",
+                            D + 1,
+                            ps.len()
+                        )));
+                    }
+                }
+                fo.validate()?;
+                self.emit(ps, sink, |w| {
+                    fit_neighbourhoods_with(ps, &Centres::AtPoints, &sel, &fo, |res| match res {
+                        Ok(e) => w.estimate(&e),
+                        Err(r) => w.tally.reject(r, "neighbourhood fit not possible"),
+                    })?;
+                    Ok(Vec::new())
+                })
+            }
+            Method::Delaunay | Method::Grid => Err(CliError::Usage(format!(
+                "--method {} needs 2D points",
+                request.method.name()
+            ))),
+        }
+    }
+}
+
+fn stream_triangles(
+    w: &mut Writer<'_, 2>,
+    tris: &[[u32; 3]],
+    th: &QualityThresholds,
+) -> Result<(), CliError> {
+    let points = w.points;
+    triangle_strains_with(points, tris, th, |outcome| match outcome {
+        ElementOutcome::Accepted(t) => {
+            let members = t.vertices.map(|v| v as usize);
+            let q = t.quality;
+            w.region(
+                triangle_label(t.index),
+                &members,
+                t.centroid,
+                &t.gradient,
+                |row| columns::triangle_cells(&q, row),
+            );
+        }
+        ElementOutcome::Rejected(r) => {
+            let kind = if r.failure.degenerate.is_some() {
+                "degenerate (zero area)"
+            } else if r.failure.min_angle.is_some() {
+                "minimum angle"
+            } else {
+                "aspect ratio"
+            };
+            w.tally.reject(
+                Rejected {
+                    label: triangle_label(r.index),
+                    members: r.vertices.iter().map(|&v| v as usize).collect(),
+                    reason: r.failure.to_string(),
+                },
+                kind,
+            );
+        }
+    })?;
+    Ok(())
+}
