@@ -109,6 +109,43 @@ pub enum CoreError {
         /// What was expected (points, elements, groups).
         what: &'static str,
     },
+    /// A rosette has fewer gauges than the three needed for a plane strain state.
+    #[error("rosette: need at least {needed} gauges, got {got}")]
+    TooFewGauges {
+        /// Minimum count (3).
+        needed: usize,
+        /// Count supplied.
+        got: usize,
+    },
+    /// Two gauges of one rosette share an identifier.
+    #[error("duplicate gauge id `{id}`")]
+    DuplicateGauge {
+        /// The repeated identifier.
+        id: String,
+    },
+    /// The gauge directions of a rosette do not determine the plane strain state:
+    /// angles coincide modulo 180°, or the layout's condition number is too large.
+    #[error("rosette layout is near-singular (gauges {gauges}): {reason}")]
+    SingularRosette {
+        /// The gauges concerned, comma-separated.
+        gauges: String,
+        /// Which angles coincide, or the condition number against its threshold.
+        reason: String,
+    },
+    /// A material preset ID is not known.
+    #[error("unknown material `{id}`; known materials: {known}")]
+    UnknownMaterial {
+        /// The ID asked for.
+        id: String,
+        /// The known IDs, comma-separated.
+        known: String,
+    },
+    /// A geodetic latitude lies outside [−90°, 90°].
+    #[error("latitude {degrees}° is outside [-90°, 90°]")]
+    LatitudeOutOfRange {
+        /// The offending latitude, in degrees.
+        degrees: f64,
+    },
 }
 
 /// Result alias for the core.

@@ -16,10 +16,13 @@
 //! Results are kinematic estimates from measured data, not a structural assessment.
 #![forbid(unsafe_code)]
 
+pub mod elasticity;
 pub mod error;
 pub mod estimate;
+pub mod geodesy;
 pub mod kinematics;
 pub mod points;
+pub mod rosette;
 
 pub use error::{CoreError, Result};
 pub use points::{Point, PointSet};
