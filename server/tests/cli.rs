@@ -30,7 +30,7 @@ fn help_shows_every_default_and_the_caution() {
         "[default: 12]",
         "[default: none]",
         "[default: 10]",
-        "[default: 20]",
+        "[default: 5]",
         "[default: 0.000001]",
         "Exit codes: 0 success; 2 bad input",
         "not a structural",
