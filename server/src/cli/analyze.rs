@@ -151,6 +151,12 @@ pub struct AnalyzeArgs {
     #[arg(long, value_name = "R")]
     pub radius: Option<f64>,
 
+    /// Centre the neighbourhoods (--method neighbourhood) on the nodes of a regular grid
+    /// with this spacing (declared length unit), laid over the points' bounding box from
+    /// its lower corner, instead of on every point [default: unset, at every point].
+    #[arg(long, value_name = "L")]
+    pub grid_spacing: Option<f64>,
+
     /// Distance weighting of the least-squares fits (groups, neighbourhood).
     #[arg(long, value_enum, default_value_t = Weighting::None)]
     pub weighting: Weighting,
@@ -194,6 +200,8 @@ pub struct EstimatorParams {
     pub k: usize,
     /// Neighbourhood radius, metres.
     pub radius_m: Option<f64>,
+    /// Spacing of the grid of neighbourhood centres, metres; `None` = at every point.
+    pub grid_spacing_m: Option<f64>,
     /// Distance weighting.
     pub weighting: Weighting,
     /// Weighting length scale, metres; `Some` whenever `weighting` is not `None`.
@@ -257,6 +265,9 @@ fn check_flags(a: &AnalyzeArgs) -> Result<(), CliError> {
     if let Some(l) = a.weight_scale {
         positive("--weight-scale", l)?;
     }
+    if let Some(l) = a.grid_spacing {
+        positive("--grid-spacing", l)?;
+    }
     if !(a.min_angle_deg.is_finite() && (0.0..60.0).contains(&a.min_angle_deg)) {
         return Err(usage(format!(
             "--min-angle-deg must be at least 0 and below 60 (no triangle has all angles above 60°), got {}",
@@ -304,6 +315,11 @@ fn resolve_method(a: &AnalyzeArgs, dim: usize) -> Result<Method, CliError> {
             "--method delaunay triangulates 2D points, but the file is 3D; use elements \
              (with --elements), neighbourhood, groups or network",
         ));
+    }
+    if a.grid_spacing.is_some() && method != Method::Neighbourhood {
+        return Err(usage(format!(
+            "--grid-spacing is used only by --method neighbourhood, not {name}"
+        )));
     }
     if a.radius.is_some() && method != Method::Neighbourhood {
         return Err(usage(format!(
@@ -364,6 +380,7 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
     let params = EstimatorParams {
         k: a.k,
         radius_m: a.radius.map(|r| unit.to_metres(r)),
+        grid_spacing_m: a.grid_spacing.map(|l| unit.to_metres(l)),
         weighting: a.weighting,
         weight_scale_m: weight_scale.map(|l| unit.to_metres(l)),
         use_precision: a.use_precision,
@@ -415,13 +432,25 @@ fn header_parameters(
                 p.push(("groups_file".into(), Cell::Text(g.display().to_string())));
             }
         }
-        Method::Neighbourhood => match a.radius {
-            Some(r) => p.push((format!("radius_{u}"), Cell::Num(r))),
-            None => p.push((
-                "k".into(),
-                Cell::Int(i64::try_from(a.k).unwrap_or(i64::MAX)),
-            )),
-        },
+        Method::Neighbourhood => {
+            match a.radius {
+                Some(r) => p.push((format!("radius_{u}"), Cell::Num(r))),
+                None => p.push((
+                    "k".into(),
+                    Cell::Int(i64::try_from(a.k).unwrap_or(i64::MAX)),
+                )),
+            }
+            p.push((
+                "centres".into(),
+                Cell::Text(match a.grid_spacing {
+                    Some(_) => "grid".into(),
+                    None => "points".into(),
+                }),
+            ));
+            if let Some(l) = a.grid_spacing {
+                p.push((format!("grid_spacing_{u}"), Cell::Num(l)));
+            }
+        }
         Method::Grid | Method::Network => {}
     }
     if matches!(method, Method::Groups | Method::Neighbourhood) {

@@ -512,8 +512,12 @@ impl Context<'_> {
                     }
                 }
                 fo.validate()?;
+                let centres = match request.params.grid_spacing_m {
+                    None => Centres::AtPoints,
+                    Some(h) => grid_centres(ps, h)?,
+                };
                 self.emit(ps, sink, |w| {
-                    fit_neighbourhoods_with(ps, &Centres::AtPoints, &sel, &fo, |res| match res {
+                    fit_neighbourhoods_with(ps, &centres, &sel, &fo, |res| match res {
                         Ok(e) => w.estimate(&e),
                         Err(r) => w.tally.reject(r, "neighbourhood fit not possible"),
                     })?;
@@ -526,6 +530,45 @@ impl Context<'_> {
             ))),
         }
     }
+}
+
+/// Most neighbourhood centres accepted on a grid (the core has its own, larger cap).
+pub const MAX_GRID_CENTRES: usize = 10_000_000;
+
+/// A grid of neighbourhood centres at spacing `h` (metres) over the bounding box of the
+/// points, from its lower corner; the last node along each axis reaches or passes the
+/// upper corner.
+fn grid_centres<const D: usize>(ps: &PointSet<D>, h: f64) -> Result<Centres<D>, CliError> {
+    let mut lo = [f64::INFINITY; D];
+    let mut hi = [f64::NEG_INFINITY; D];
+    for p in ps.points() {
+        for k in 0..D {
+            lo[k] = lo[k].min(p.x[k]);
+            hi[k] = hi[k].max(p.x[k]);
+        }
+    }
+    let mut counts = [1usize; D];
+    let mut total = 1usize;
+    for k in 0..D {
+        let n = ((hi[k] - lo[k]) / h).ceil() + 1.0;
+        if !(n.is_finite() && n <= MAX_GRID_CENTRES as f64) {
+            return Err(CliError::Usage(format!(
+                "--grid-spacing {h} m gives too many nodes along axis {k}"
+            )));
+        }
+        counts[k] = n as usize;
+        total = total.saturating_mul(counts[k]);
+    }
+    if total > MAX_GRID_CENTRES {
+        return Err(CliError::Usage(format!(
+            "--grid-spacing gives {total} grid nodes, more than {MAX_GRID_CENTRES}; use a coarser spacing"
+        )));
+    }
+    Ok(Centres::Grid {
+        origin: lo,
+        spacing: [h; D],
+        counts,
+    })
 }
 
 fn stream_triangles(
