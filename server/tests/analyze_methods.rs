@@ -6,9 +6,9 @@
 //! and a rigid translation (`G = 0`) must give zero strain and zero rotation.
 //! Source: the definition of the small-strain tensor and the constant-strain
 //! (uniform-field) property of linear displacement fields, e.g. Timoshenko &
-//! Goodier, Theory of Elasticity, 3rd ed., §§2-4 (section numbers from memory; strain components from
-//! displacements) — linear interpolation, least squares and central differences
-//! all reproduce a linear field exactly.
+//! Goodier, Theory of Elasticity, 3rd ed., §§2-4 (section numbers from memory:
+//! strain components from displacements) — linear interpolation, least squares and
+//! central differences all reproduce a linear field exactly.
 //!
 //! Tolerances: the inputs are written as round-trip doubles; coordinates lie about
 //! 1000 m from the origin and regions are metres wide, so rounding of `u` is
