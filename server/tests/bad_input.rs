@@ -274,7 +274,6 @@ fn data_the_estimators_reject_exit_2_and_write_nothing() {
 }
 
 #[test]
-#[ignore = "bug: the --output file is created (empty) before the estimator rejects the data"]
 fn output_file_is_not_created_when_the_estimator_rejects_the_data() {
     // `--help` promises: "The file is created only after the input has been read and
     // checked". cli::analyze::run opens the output before pipeline::run, whose

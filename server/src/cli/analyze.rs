@@ -471,30 +471,82 @@ fn header_parameters(
     p
 }
 
-/// Open the output: `path`, created now, or stdout; buffered.
-pub fn open_output(path: Option<&Path>) -> Result<Box<dyn Write>, CliError> {
-    match path {
-        None => Ok(Box::new(BufWriter::with_capacity(1 << 16, io::stdout()))),
-        Some(p) => {
-            let f = File::create(p).map_err(|source| CliError::Output {
-                target: p.display().to_string(),
-                source,
-            })?;
-            Ok(Box::new(BufWriter::with_capacity(1 << 16, f)))
+/// A result file being written under a temporary name beside its final path. It is
+/// renamed into place by [`PendingFile::commit`] when the run succeeds, and removed
+/// when dropped uncommitted, so a failed run never leaves a half-written or empty file.
+#[derive(Debug)]
+pub struct PendingFile {
+    partial: PathBuf,
+    target: PathBuf,
+    committed: bool,
+}
+
+impl PendingFile {
+    /// Move the finished file to its final path.
+    pub fn commit(mut self) -> Result<(), CliError> {
+        std::fs::rename(&self.partial, &self.target).map_err(|source| CliError::Output {
+            target: self.target.display().to_string(),
+            source,
+        })?;
+        self.committed = true;
+        Ok(())
+    }
+}
+
+impl Drop for PendingFile {
+    fn drop(&mut self) {
+        if !self.committed {
+            // Best effort: the partial file is ours and useless after a failure.
+            let _ = std::fs::remove_file(&self.partial);
         }
     }
 }
 
-/// Run `kinema analyze`: read and check, open the output, compute and write.
+/// Open the output, buffered: stdout, or a temporary file beside `path` (see
+/// [`PendingFile`]).
+pub fn open_output(path: Option<&Path>) -> Result<(Box<dyn Write>, Option<PendingFile>), CliError> {
+    match path {
+        None => Ok((
+            Box::new(BufWriter::with_capacity(1 << 16, io::stdout())),
+            None,
+        )),
+        Some(p) => {
+            let name = p
+                .file_name()
+                .map_or_else(|| "output".into(), |n| n.to_string_lossy().into_owned());
+            let partial = p.with_file_name(format!(".{name}.partial-{}", std::process::id()));
+            let f = File::create(&partial).map_err(|source| CliError::Output {
+                target: p.display().to_string(),
+                source,
+            })?;
+            Ok((
+                Box::new(BufWriter::with_capacity(1 << 16, f)),
+                Some(PendingFile {
+                    partial,
+                    target: p.to_path_buf(),
+                    committed: false,
+                }),
+            ))
+        }
+    }
+}
+
+/// Run `kinema analyze`: read and check, compute and write; an output file appears only
+/// when everything succeeded.
 pub fn run(a: &AnalyzeArgs) -> Result<(), CliError> {
     let request = prepare(a)?;
     let target = a
         .output
         .as_deref()
         .map_or_else(|| "stdout".to_owned(), |p| p.display().to_string());
-    let out = open_output(a.output.as_deref())?;
+    let (out, pending) = open_output(a.output.as_deref())?;
     let mut sink = output::sink(a.format, out);
-    crate::pipeline::run(&request, sink.as_mut(), &target)
+    crate::pipeline::run(&request, sink.as_mut(), &target)?;
+    drop(sink);
+    match pending {
+        Some(p) => p.commit(),
+        None => Ok(()),
+    }
 }
 
 #[cfg(test)]
