@@ -8,7 +8,7 @@
 
 use std::io::{self, Write};
 
-use super::{Cell, Footer, Header, RowSink, Schema, Section, finite, round_trip};
+use super::{Cell, Footer, Header, RowSink, Schema, Section, finite, push_round_trip};
 
 /// Streaming CSV writer over any `io::Write`.
 pub struct CsvSink<W: Write> {
@@ -78,13 +78,20 @@ fn cell_text(c: &Cell, buf: &mut String) {
     buf.clear();
     match c {
         Cell::Text(s) => buf.push_str(s),
-        Cell::List(v) => buf.push_str(&v.join(" ")),
+        Cell::List(v) => {
+            for (i, id) in v.iter().enumerate() {
+                if i > 0 {
+                    buf.push(' ');
+                }
+                buf.push_str(id);
+            }
+        }
         Cell::Int(i) => {
             let _ = write!(buf, "{i}");
         }
         Cell::Num(x) => {
             if let Some(x) = finite(*x) {
-                buf.push_str(&round_trip(x));
+                push_round_trip(buf, x);
             }
         }
         Cell::Bool(b) => buf.push_str(if *b { "true" } else { "false" }),

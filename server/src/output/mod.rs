@@ -319,7 +319,14 @@ fn finite(v: f64) -> Option<f64> {
 /// Shortest text that reads back to the same `f64` (Rust's `Debug` for floats, which
 /// switches to exponent form for very large and very small magnitudes).
 fn round_trip(v: f64) -> String {
-    format!("{v:?}")
+    let mut b = ryu::Buffer::new();
+    b.format(v).to_owned()
+}
+
+/// Append the shortest text that reads back as exactly `v` (finite `v`) to `out`.
+fn push_round_trip(out: &mut String, v: f64) {
+    let mut b = ryu::Buffer::new();
+    out.push_str(b.format(v));
 }
 
 #[cfg(test)]
