@@ -378,6 +378,36 @@ impl<const D: usize> Fitter<D> {
         }
     }
 
+    /// The error for a sum of weights that overflows: names the first kept point at
+    /// which the running sum of `w̄` stops satisfying `ok`.
+    fn overflow(
+        &self,
+        points: &PointSet<D>,
+        kind: RegionKind,
+        label: &str,
+        ok: impl Fn(f64) -> bool,
+    ) -> CoreError {
+        let mut sum = 0.0;
+        let mut at = 0;
+        for (q, &wb) in self.wbar.iter().enumerate() {
+            sum += wb;
+            if !ok(sum) {
+                at = q;
+                break;
+            }
+        }
+        let p = &points.points()[self.kept[at]];
+        CoreError::InvalidParameter {
+            name: "sigma",
+            reason: format!(
+                "{}: point `{}`: weight {:e} makes the sum of weights overflow",
+                context(kind, label),
+                p.id,
+                self.wbar[at]
+            ),
+        }
+    }
+
     /// The fit itself. Options are assumed validated; members in range and distinct.
     pub(crate) fn fit(
         &mut self,
@@ -501,7 +531,13 @@ impl<const D: usize> Fitter<D> {
             self.k[kq] = kw;
             kq += 1;
             self.kept.push(m);
-            self.wbar.push(w.iter().sum::<f64>() / D as f64);
+            // Mean of the per-axis weights; summed as w/D where the plain sum overflows.
+            let mean = w.iter().sum::<f64>() / D as f64;
+            self.wbar.push(if mean.is_finite() {
+                mean
+            } else {
+                w.iter().map(|v| v / D as f64).sum()
+            });
             self.prec.push(prec);
             self.w.push(w);
         }
@@ -537,6 +573,9 @@ impl<const D: usize> Fitter<D> {
                 acc[k] += wb * (pts[m].x[k] - x0[k]);
             }
         }
+        if !wsum.is_finite() {
+            return Err(self.overflow(points, kind, label, |w| w.is_finite()));
+        }
         let mut xbar = [0.0; D];
         for k in 0..D {
             xbar[k] = x0[k] + acc[k] / wsum;
@@ -559,6 +598,17 @@ impl<const D: usize> Fitter<D> {
             self.d.push(d);
         }
         let trace: f64 = (0..D).map(|k| mm[k][k]).sum();
+        if !trace.is_finite() {
+            return Err(CoreError::InvalidParameter {
+                name: "sigma",
+                reason: format!(
+                    "{}: the weighted moment matrix overflows (weights up to {:e}); \
+                     the standard deviations are too small",
+                    context(kind, label),
+                    self.wbar.iter().fold(0.0_f64, |a, &b| a.max(b))
+                ),
+            });
+        }
         let spread = (trace / wsum).sqrt();
         let mag = xbar.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
         let eig = sorted_eigenvalues::<D>(&mm)?;
