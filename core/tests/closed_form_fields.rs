@@ -789,7 +789,7 @@ fn set3(xs: &[[f64; 3]]) -> PointSet<3> {
 #[test]
 fn flat_and_sliver_tetrahedra_are_refused() {
     let t = QualityThresholds::default();
-    let tet = ElementSpec::new("T1", ["P1", "P2", "P3", "P4"]);
+    let tet = [ElementSpec::new("T1", ["P1", "P2", "P3", "P4"])];
     // Flat: the fourth vertex in the plane of the other three (zero volume).
     let flat = set3(&[
         [0.0, 0.0, 0.0],
@@ -797,7 +797,7 @@ fn flat_and_sliver_tetrahedra_are_refused() {
         [0.0, 1.0, 0.0],
         [0.4, 0.4, 0.0],
     ]);
-    match element_strains(&flat, &[tet.clone()], OrientationPolicy::Fix, &t) {
+    match element_strains(&flat, &tet, OrientationPolicy::Fix, &t) {
         Err(CoreError::DegenerateElement { element, reason }) => {
             assert_eq!(element, "T1");
             assert!(reason.starts_with("zero volume"), "{reason}");
@@ -814,7 +814,7 @@ fn flat_and_sliver_tetrahedra_are_refused() {
         [1.0, 1.0, 0.0],
         [0.0, 1.0, 0.01],
     ]);
-    let (acc, rej) = element_strains(&sliver, &[tet.clone()], OrientationPolicy::Fix, &t)
+    let (acc, rej) = element_strains(&sliver, &tet, OrientationPolicy::Fix, &t)
         .expect("a sliver is screened, not an error");
     assert!(acc.is_empty());
     assert_eq!(rej.len(), 1);
@@ -826,7 +826,7 @@ fn flat_and_sliver_tetrahedra_are_refused() {
     // The same sliver with the screen off is accepted and its gradient is exact.
     let (acc, _) = element_strains(
         &sliver,
-        &[tet],
+        &tet,
         OrientationPolicy::Fix,
         &QualityThresholds::off(),
     )

@@ -173,8 +173,8 @@ pub fn grid_gradients(field: &GridField2) -> Result<(Vec<GradientEstimate<2>>, V
             col_count[idx % nx] += 1;
         }
     }
-    for j in 0..ny {
-        for i in 0..nx {
+    for (j, &row_n) in row_count.iter().enumerate() {
+        for (i, &col_n) in col_count.iter().enumerate() {
             let idx = j * nx + i;
             let Some(u0) = field.u[idx] else { continue };
             let label = format!("{i},{j}");
@@ -183,9 +183,9 @@ pub fn grid_gradients(field: &GridField2) -> Result<(Vec<GradientEstimate<2>>, V
             let (Some((gx, sx)), Some((gy, sy))) = (ddx, ddy) else {
                 let axis = if ddx.is_none() { "x" } else { "y" };
                 let (p, len, usable) = if ddx.is_none() {
-                    (i, nx, row_count[j])
+                    (i, nx, row_n)
                 } else {
-                    (j, ny, col_count[i])
+                    (j, ny, col_n)
                 };
                 bad.push(Rejected {
                     reason: format!(

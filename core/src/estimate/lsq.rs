@@ -494,7 +494,7 @@ impl<const D: usize> Fitter<D> {
         let mut kq = 0;
         for (q, &m) in members.iter().enumerate() {
             let kw = self.k[q];
-            if !(kmax > 0.0) || kw <= 0.0 || kw < kcut {
+            if kmax <= 0.0 || kw <= 0.0 || kw < kcut {
                 continue;
             }
             let kw = if dw == DistanceWeight::None {
@@ -763,7 +763,7 @@ impl<const D: usize> Fitter<D> {
         } else {
             redundancy as f64
         };
-        let exact = redundancy == 0 || !(effective_redundancy > 0.0);
+        let exact = redundancy == 0 || effective_redundancy.is_nan() || effective_redundancy <= 0.0;
         let variance_factor = (!exact).then(|| vtpv / effective_redundancy);
         let factor = variance_factor.unwrap_or(1.0);
 
