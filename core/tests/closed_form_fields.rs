@@ -355,15 +355,21 @@ fn cantilever_displacement_matches_published_strain_and_stress() {
     for _ in 0..20 {
         let x = [rng.range(0.5, 9.5), rng.range(0.0, 2.0)];
         let (s, t) = (x[0], x[1] - 1.0);
+        // The strain of the displacement formula (by central differences) against the
+        // published strains written out here, not through `Field::strain`. The
+        // displacement is cubic: the central-difference error is h²·u'''/6 ≈ 2e-7·k.
         let fd = fd_strain(&f, x, 1e-3);
-        let ex = f.strain(x);
-        assert!((ex[(0, 0)] + k * s * t).abs() < 1e-15);
-        assert!((ex[(1, 1)] - f.nu * k * s * t).abs() < 1e-15);
-        let gxy = 2.0 * ex[(0, 1)];
+        let tol = 1e-6 * k * 10.0;
+        assert!((fd[(0, 0)] + k * s * t).abs() < tol, "εx {fd}");
+        assert!((fd[(1, 1)] - f.nu * k * s * t).abs() < tol, "εy {fd}");
         let p_over_ig = 2.0 * (1.0 + f.nu) * k;
-        assert!((gxy + p_over_ig * (1.0 - t * t) / 2.0).abs() < 1e-15);
-        // The displacement is cubic: the central-difference error is h²·u'''/6 ≈ 2e-7·k.
-        assert!(max_abs(&(fd - ex)) < 1e-6 * k * 10.0, "{fd} vs {ex}");
+        assert!(
+            (2.0 * fd[(0, 1)] + p_over_ig * (1.0 - t * t) / 2.0).abs() < tol,
+            "γxy {fd}"
+        );
+        // And `Field::strain` (published stresses through Hooke's law) agrees.
+        let ex = f.strain(x);
+        assert!(max_abs(&(fd - ex)) < tol, "{fd} vs {ex}");
     }
     // Boundary conditions of Art. 21: clamped end s = L on the axis, tip deflection.
     let tip = f.displacement([0.0, 1.0]);
@@ -760,4 +766,124 @@ fn user_element_errors_name_the_element() {
             ..
         })
     ));
+}
+
+fn set3(xs: &[[f64; 3]]) -> PointSet<3> {
+    PointSet::new(
+        xs.iter()
+            .enumerate()
+            .map(|(k, &x)| {
+                // u = G·x with a fixed G, to check the gradient where one is formed.
+                let u = [
+                    1e-3 * x[0] + 2e-4 * x[1],
+                    -3e-4 * x[2],
+                    5e-4 * x[0] + 1e-4 * x[2],
+                ];
+                Point::new(format!("P{}", k + 1), x, u)
+            })
+            .collect(),
+    )
+    .expect("valid points")
+}
+
+#[test]
+fn flat_and_sliver_tetrahedra_are_refused() {
+    let t = QualityThresholds::default();
+    let tet = [ElementSpec::new("T1", ["P1", "P2", "P3", "P4"])];
+    // Flat: the fourth vertex in the plane of the other three (zero volume).
+    let flat = set3(&[
+        [0.0, 0.0, 0.0],
+        [1.0, 0.0, 0.0],
+        [0.0, 1.0, 0.0],
+        [0.4, 0.4, 0.0],
+    ]);
+    match element_strains(&flat, &tet, OrientationPolicy::Fix, &t) {
+        Err(CoreError::DegenerateElement { element, reason }) => {
+            assert_eq!(element, "T1");
+            assert!(reason.starts_with("zero volume"), "{reason}");
+        }
+        other => panic!("expected DegenerateElement, got {other:?}"),
+    }
+    // Sliver: four nearly coplanar vertices at the corners of a unit square, two of
+    // them lifted by ±0.01 m. Non-zero volume, but the dihedral angles along the two
+    // diagonals are near 0 and 180°: the smallest is about 2·atan(0.01·√2) ≈ 1.6°
+    // (elementary geometry).
+    let sliver = set3(&[
+        [0.0, 0.0, 0.0],
+        [1.0, 0.0, 0.01],
+        [1.0, 1.0, 0.0],
+        [0.0, 1.0, 0.01],
+    ]);
+    let (acc, rej) = element_strains(&sliver, &tet, OrientationPolicy::Fix, &t)
+        .expect("a sliver is screened, not an error");
+    assert!(acc.is_empty());
+    assert_eq!(rej.len(), 1);
+    assert!(
+        rej[0].reason.starts_with("minimum dihedral angle"),
+        "{}",
+        rej[0].reason
+    );
+    // The same sliver with the screen off is accepted and its gradient is exact.
+    let (acc, _) = element_strains(
+        &sliver,
+        &tet,
+        OrientationPolicy::Fix,
+        &QualityThresholds::off(),
+    )
+    .expect("accepted");
+    let want = Matrix3::new(1e-3, 2e-4, 0.0, 0.0, 0.0, -3e-4, 5e-4, 0.0, 1e-4);
+    assert!(
+        (acc[0].gradient - want).abs().max() < 1e-12,
+        "{}",
+        acc[0].gradient
+    );
+}
+
+#[test]
+fn huge_and_tiny_elements_keep_their_quality_and_gradient() {
+    // Source: elementary geometry: the regular tetrahedron (±1, ±1, ±1 with an even
+    // number of minus signs) and the equilateral triangle are ideal at every size; a
+    // linear field u = G·x gives G exactly on every element. 1e±150 m overflows or
+    // underflows squared edge lengths cubed without scaling.
+    for size in [1e150, 1e-150] {
+        let reg = set3(&[
+            [size, size, size],
+            [size, -size, -size],
+            [-size, size, -size],
+            [-size, -size, size],
+        ]);
+        let (acc, rej) = element_strains(
+            &reg,
+            &[ElementSpec::new("T1", ["P1", "P2", "P3", "P4"])],
+            OrientationPolicy::Fix,
+            &QualityThresholds::default(),
+        )
+        .expect("regular tetrahedron");
+        assert!(rej.is_empty(), "{size}: {rej:?}");
+        let want = Matrix3::new(1e-3, 2e-4, 0.0, 0.0, 0.0, -3e-4, 5e-4, 0.0, 1e-4);
+        assert!(
+            (acc[0].gradient - want).abs().max() < 1e-15,
+            "{size}: {}",
+            acc[0].gradient
+        );
+        let h = 3f64.sqrt() / 2.0;
+        let tri = PointSet::new(
+            [[0.0, 0.0], [size, 0.0], [0.5 * size, h * size]]
+                .iter()
+                .enumerate()
+                .map(|(k, &x)| Point::new(format!("P{}", k + 1), x, [2e-3 * x[1], -1e-3 * x[0]]))
+                .collect(),
+        )
+        .expect("valid");
+        let (acc, rej) = element_strains(
+            &tri,
+            &[ElementSpec::new("E1", ["P1", "P2", "P3"])],
+            OrientationPolicy::Require,
+            &QualityThresholds::default(),
+        )
+        .expect("equilateral triangle");
+        assert!(rej.is_empty(), "{size}: {rej:?}");
+        let want = Matrix2::new(0.0, 2e-3, -1e-3, 0.0);
+        assert!((acc[0].gradient - want).abs().max() < 1e-15, "{size}");
+    }
 }

@@ -16,7 +16,9 @@ use std::collections::HashMap;
 use nalgebra::SMatrix;
 use serde::{Deserialize, Serialize};
 
-use super::quality::{QualityThresholds, TetrahedronQuality, TriangleQuality};
+use super::quality::{
+    DEGENERATE_TOL, QualityThresholds, TetrahedronQuality, TriangleQuality, edge_scale,
+};
 use super::{GradientEstimate, RegionKind, Rejected};
 use crate::error::{CoreError, Result};
 use crate::points::{PointSet, validate_id};
@@ -164,16 +166,20 @@ pub fn element_strains<const D: usize>(
         // Columns e_k = x_k − x_0 and d_k = u_k − u_0.
         let e = SMatrix::<f64, D, D>::from_fn(|r, k| pts[members[k + 1]].x[r] - x0[r]);
         let d = SMatrix::<f64, D, D>::from_fn(|r, k| pts[members[k + 1]].u[r] - u0[r]);
-        let (det, adj) = det_adjugate(&e);
-        let scale = e.norm_squared().powf(D as f64 / 2.0);
-        if det.abs() <= super::quality::DEGENERATE_TOL * scale {
+        // The edge matrix scaled to unit size by a power of two (exact), so that det and
+        // the squared lengths neither overflow nor underflow; E⁻¹ = adj(Eₛ)/(det(Eₛ)·p).
+        let p = edge_scale(e.as_slice());
+        let es = e / p;
+        let (det, adj) = det_adjugate(&es);
+        let scale = es.norm_squared().powf(D as f64 / 2.0);
+        if det.abs() <= DEGENERATE_TOL * scale || !det.is_finite() {
             let what = if D == 2 { "area" } else { "volume" };
             return Err(CoreError::DegenerateElement {
                 element: el.id.clone(),
                 reason: format!(
-                    "zero {what}: |det| = {:.3e} is at most 1e-12 × {scale:.3e} \
-                     (squared edge lengths to the power D/2)",
-                    det.abs()
+                    "zero {what}: |det E| / (Σ|e_k|²)^(D/2) = {:.3e} is at most 1e-12 \
+                     (E = edge vectors from the first vertex)",
+                    det.abs() / scale
                 ),
             });
         }
@@ -194,20 +200,18 @@ pub fn element_strains<const D: usize>(
                 OrientationPolicy::Fix => members.swap(D - 1, D),
             }
         }
-        let verts: Vec<[f64; D]> = members.iter().map(|&i| pts[i].x).collect();
+        // Vertex coordinates in (possibly corrected) order, on the stack; the third
+        // coordinate is 0 in 2D and unused there.
+        let mut verts = [[0.0; 3]; 4];
+        for (v, &i) in verts.iter_mut().zip(&members) {
+            v[..D].copy_from_slice(&pts[i].x);
+        }
         let failure = if D == 2 {
-            let q = TriangleQuality::from_vertices([
-                [verts[0][0], verts[0][1]],
-                [verts[1][0], verts[1][1]],
-                [verts[2][0], verts[2][1]],
-            ]);
+            let v2 = |k: usize| [verts[k][0], verts[k][1]];
+            let q = TriangleQuality::from_vertices([v2(0), v2(1), v2(2)]);
             thresholds.check_triangle(&q)
         } else {
-            let v3 = |k: usize| {
-                let x = &verts[k];
-                [x[0], x[1], x.get(2).copied().unwrap_or(0.0)]
-            };
-            let q = TetrahedronQuality::from_vertices([v3(0), v3(1), v3(2), v3(3)]);
+            let q = TetrahedronQuality::from_vertices(verts);
             thresholds.check_tetrahedron(&q)
         };
         if let Some(f) = failure {
@@ -218,7 +222,7 @@ pub fn element_strains<const D: usize>(
             });
             continue;
         }
-        let gradient = d * adj / det;
+        let gradient = d * adj / det / p;
         let m = (D + 1) as f64;
         let mut centroid = x0;
         let mut translation = [0.0; D];

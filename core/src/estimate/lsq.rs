@@ -17,19 +17,26 @@
 //! Every point has one weight per displacement axis:
 //!
 //! ```text
-//! w_{p,i} = π_{p,i} · δ_p
+//! w_{p,i} = K_p · π_{p,i}
 //! ```
 //!
 //! - precision weight `π_{p,i} = 1/σ_{p,i}²` (σ in metres, so π in 1/m²) when
-//!   [`FitOptions::use_precision`] is set and the point states its precision; otherwise 1;
-//! - distance weight `δ_p` of the point's distance `d` (metres) from a centre
-//!   ([`DistanceWeight`]); 1 when no distance weighting is asked for.
+//!   [`FitOptions::use_precision`] is set and the members state their precision (all of
+//!   them or none: a mixture is an error); otherwise 1;
+//! - kernel (distance) weight `K_p` of the point's distance `d` (metres) from a centre
+//!   ([`DistanceWeight`]), divided by the largest kernel weight of the group so that it
+//!   lies in `(0, 1]`; 1 when no distance weighting is asked for.
 //!
-//! Points whose weight is zero (for example beyond the radius of
-//! [`DistanceWeight::QuadraticDecay`]) are not observations: they are left out of the fit,
-//! the member list, the residuals and the redundancy.
+//! The two play different parts. `π` states how precise an observation is; `K` only
+//! *localises* the fit around its centre and says nothing about precision. The variance
+//! of `u_{p,i}` is `σ₀²/π_{p,i}` whatever `K`, and the statistics below account for that.
 //!
-//! The centroid and the moment matrix use one scalar weight per point, `w̄_p = δ_p · mean_i
+//! Points with `K_p < 1e-12 · max K` (for example beyond the radius of
+//! [`DistanceWeight::QuadraticDecay`], or far out on the Gaussian tail) are not
+//! observations of this fit: they are left out of the fit, the member list, the
+//! residuals and the redundancy.
+//!
+//! The centroid and the moment matrix use one scalar weight per point, `w̄_p = K_p · mean_i
 //! π_{p,i}`; it equals the per-axis weight whenever the precision is the same on every axis.
 //!
 //! ## Solution
@@ -40,14 +47,34 @@
 //! size). Each `N_i` is solved by Cholesky decomposition, followed by one step of iterative
 //! refinement on the residuals.
 //!
-//! - Redundancy `r = n·D − D·(D+1)` for `n` points with non-zero weight.
-//! - Residuals `v = u_observed − u_fitted` (metres); `vᵀPv = Σ_{p,i} w_{p,i} v_{p,i}²`.
-//! - A-posteriori variance factor `σ̂₀² = vᵀPv / r` when `r > 0` (Ghilani & Wolf,
-//!   *Adjustment Computations*, the reference variance of a weighted adjustment).
-//! - Covariance of `vec(G)` (row-major: `G[0][0], G[0][1], …`) is block diagonal: row `i`
-//!   of `G` gets `σ̂₀² · [N_i⁻¹]_{G-part}` (rescaled by `1/s²`). When `r = 0` the fit is
-//!   exact, it says nothing about precision, and the a-priori variance factor 1 is used
-//!   instead (`FitStats::exact = true`, `variance_factor = None`).
+//! Per component `i` write `A` for the `n×(D+1)` matrix of rows `a_pᵀ`, `K`, `P` and
+//! `W = K·P` for the diagonal matrices of kernel, precision and total weights. The
+//! estimate is `β̂ = (AᵀWA)⁻¹AᵀWu = N⁻¹AᵀWu`, and with `H = A N⁻¹ AᵀW`:
+//!
+//! - Redundancy `r = n·D − D·(D+1)` for the `n` points used ([`FitStats::redundancy`]).
+//! - Residuals `v = u_observed − u_fitted` (metres); `vᵀPv = Σ_{p,i} π_{p,i} v_{p,i}²`
+//!   (precision weights only: the kernel is not a precision).
+//! - Effective redundancy `r_eff = E[vᵀPv]/σ₀² = Σ_i tr((I−H)ᵀP(I−H)P⁻¹)`
+//!   `= Σ_i (n − 2(D+1) + tr(N⁻¹ B N⁻¹ C))` with `B = AᵀK²PA`, `C = AᵀPA`
+//!   (`O(n·D²)` per component with diagonal weights). Without distance weighting
+//!   (`K = I`) it is exactly `r` ([`FitStats::effective_redundancy`]).
+//! - A-posteriori variance factor `σ̂₀² = vᵀPv / r_eff` when `r > 0`, unbiased for `σ₀²`
+//!   (for `K = I` the reference variance of a weighted adjustment, Ghilani & Wolf,
+//!   *Adjustment Computations*).
+//! - Covariance of `β̂` by the sandwich (Huber–White) form of a weighted estimator,
+//!   `σ₀² N⁻¹ (AᵀK²PA) N⁻¹`, which reduces to `σ₀² (AᵀPA)⁻¹` for `K = I` (and is then
+//!   computed as that). The covariance of `vec(G)` (row-major: `G[0][0], G[0][1], …`) is
+//!   block diagonal: row `i` of `G` gets the G-part of component `i` (rescaled by `1/s²`).
+//!   When `r = 0` the fit is exact, it says nothing about precision, and the a-priori
+//!   variance factor `σ₀² = 1` is used instead (`FitStats::exact = true`,
+//!   `variance_factor = None`); that is meaningful only with stated precisions
+//!   (see [`FitStats::cov_gradient`]).
+//!
+//! ## Weight checks
+//! A precision weight `1/σ²` or total weight `K·π` that is zero, subnormal or not finite
+//! (σ above about 10¹⁵⁴ m or below about 10⁻¹⁵⁴ m), and a normal matrix that overflows,
+//! are rejected as `InvalidParameter { name: "sigma" }` naming the point, rather than
+//! misread as degenerate geometry.
 //!
 //! ## Geometry check
 //! The centred weighted moment matrix `M = Σ_p w̄_p (x_p − x̄)(x_p − x̄)ᵀ` (m² times weight)
@@ -78,6 +105,9 @@ pub const DEFAULT_MIN_CONDITION: f64 = 1e-10;
 
 /// Relative spread below which the points of a group count as one point (coordinate rounding).
 const COINCIDENT_REL: f64 = 1e-12;
+
+/// Kernel weights below this fraction of the group's largest are not observations.
+const KERNEL_CUTOFF: f64 = 1e-12;
 
 /// Iteration cap of the bounded symmetric eigen-solver on the moment matrix.
 const EIGEN_MAX_ITER: usize = 200;
@@ -145,8 +175,11 @@ fn positive_finite(name: &'static str, v: f64) -> Result<()> {
 /// Options of the weighted least-squares fit.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct FitOptions {
-    /// Weight each displacement component by `1/σ²` from [`crate::Point::sigma`] where the
-    /// point states it (points without a stated precision get weight 1).
+    /// Weight each displacement component by `1/σ²` from [`crate::Point::sigma`]. When
+    /// any member of a fit states its precision, every member must (a fit that mixed
+    /// `1/σ²` with weight 1 for the others would be meaningless): a member without one
+    /// is an `InvalidParameter { name: "sigma" }` error naming it. When no member states
+    /// one, or the option is off, every precision weight is 1 (and `σ̂₀²` is in m²).
     pub use_precision: bool,
     /// Distance weighting relative to the fit's centre.
     pub distance_weight: DistanceWeight,
@@ -201,9 +234,11 @@ pub struct Group {
 /// residuals, variance factor, redundancy and covariance of `vec(G)` (module docs).
 ///
 /// # Errors
-/// `TooFewPoints` (fewer than `D+1` points with non-zero weight), `DegenerateGeometry`
+/// `TooFewPoints` (fewer than `D+1` points with non-negligible weight), `DegenerateGeometry`
 /// (coincident, collinear, coplanar), `InvalidParameter` (bad options, member index out of
-/// range or repeated, non-finite centre, every weight zero), `EigenNoConvergence`.
+/// range or repeated, non-finite centre, every weight zero; `sigma` for a member without
+/// a stated precision under `use_precision`, or a weight or normal matrix out of the
+/// floating-point range), `EigenNoConvergence`.
 pub fn fit_points<const D: usize>(
     points: &PointSet<D>,
     members: &[usize],
@@ -321,6 +356,11 @@ pub(crate) struct FitOutput<const D: usize> {
 /// Reusable work buffers of the fit, so that many small fits do not reallocate.
 pub(crate) struct Fitter<const D: usize> {
     kept: Vec<usize>,
+    /// Kernel weight per member (first pass), then per kept point, normalised to max 1.
+    k: Vec<f64>,
+    /// Precision weight `π` per kept point and axis.
+    prec: Vec<[f64; D]>,
+    /// Total weight `K·π` per kept point and axis.
     w: Vec<[f64; D]>,
     wbar: Vec<f64>,
     d: Vec<[f64; D]>,
@@ -330,9 +370,41 @@ impl<const D: usize> Fitter<D> {
     pub(crate) fn new() -> Self {
         Self {
             kept: Vec::new(),
+            k: Vec::new(),
+            prec: Vec::new(),
             w: Vec::new(),
             wbar: Vec::new(),
             d: Vec::new(),
+        }
+    }
+
+    /// The error for a sum of weights that overflows: names the first kept point at
+    /// which the running sum of `w̄` stops satisfying `ok`.
+    fn overflow(
+        &self,
+        points: &PointSet<D>,
+        kind: RegionKind,
+        label: &str,
+        ok: impl Fn(f64) -> bool,
+    ) -> CoreError {
+        let mut sum = 0.0;
+        let mut at = 0;
+        for (q, &wb) in self.wbar.iter().enumerate() {
+            sum += wb;
+            if !ok(sum) {
+                at = q;
+                break;
+            }
+        }
+        let p = &points.points()[self.kept[at]];
+        CoreError::InvalidParameter {
+            name: "sigma",
+            reason: format!(
+                "{}: point `{}`: weight {:e} makes the sum of weights overflow",
+                context(kind, label),
+                p.id,
+                self.wbar[at]
+            ),
         }
     }
 
@@ -376,13 +448,29 @@ impl<const D: usize> Fitter<D> {
             (None, _) => plain_centroid(points, members),
         };
 
-        // Weights; points with zero weight drop out.
-        self.kept.clear();
-        self.w.clear();
-        self.wbar.clear();
+        // Precision weighting: all members state their precision, or none does (then
+        // unit weights); a mixture would put weight 1 beside weights 1/σ² ≈ 10⁶.
+        if opts.use_precision
+            && members.iter().any(|&m| pts[m].sigma.is_some())
+            && let Some(&m) = members.iter().find(|&&m| pts[m].sigma.is_none())
+        {
+            return Err(CoreError::InvalidParameter {
+                name: "sigma",
+                reason: format!(
+                    "{}: point `{}` states no standard deviation while other points do; \
+                     precision weighting needs one for every point (or switch it off)",
+                    context(kind, label),
+                    pts[m].id
+                ),
+            });
+        }
+
+        // Kernel weights; their maximum normalises them to (0, 1].
+        self.k.clear();
+        let mut kmax = 0.0_f64;
         for &m in members {
             let p = &pts[m];
-            let delta = match dw {
+            let kw = match dw {
                 DistanceWeight::None => 1.0,
                 _ => {
                     let mut d2 = 0.0;
@@ -393,32 +481,68 @@ impl<const D: usize> Fitter<D> {
                     dw.weight(d2)
                 }
             };
-            if delta.is_nan() || delta <= 0.0 {
+            let kw = if kw.is_nan() { 0.0 } else { kw };
+            kmax = kmax.max(kw);
+            self.k.push(kw);
+        }
+        // Points with negligible kernel weight drop out (module docs).
+        let kcut = KERNEL_CUTOFF * kmax;
+        self.kept.clear();
+        self.prec.clear();
+        self.w.clear();
+        self.wbar.clear();
+        let mut kq = 0;
+        for (q, &m) in members.iter().enumerate() {
+            let kw = self.k[q];
+            if kmax <= 0.0 || kw <= 0.0 || kw < kcut {
                 continue;
             }
-            let mut w = [delta; D];
+            let kw = if dw == DistanceWeight::None {
+                1.0
+            } else {
+                kw / kmax
+            };
+            let p = &pts[m];
+            let mut prec = [1.0; D];
+            let mut w = [kw; D];
             if opts.use_precision
                 && let Some(s) = p.sigma
             {
                 for k in 0..D {
-                    w[k] = delta / (s[k] * s[k]);
-                    if !w[k].is_finite() {
+                    prec[k] = 1.0 / (s[k] * s[k]);
+                    w[k] = kw * prec[k];
+                    if !prec[k].is_normal() || !w[k].is_normal() {
                         return Err(CoreError::InvalidParameter {
                             name: "sigma",
                             reason: format!(
-                                "{}: point `{}`: standard deviation {} m is too small to form a weight 1/σ²",
+                                "{}: point `{}`: standard deviation {} m gives the weight \
+                                 1/σ² = {:e} (kernel weight {kw:e}), outside the \
+                                 floating-point range of a weight",
                                 context(kind, label),
                                 p.id,
-                                s[k]
+                                s[k],
+                                prec[k]
                             ),
                         });
                     }
                 }
             }
+            // Reuse the front of `k` for the kept points' normalised kernel weights.
+            self.k[kq] = kw;
+            kq += 1;
             self.kept.push(m);
-            self.wbar.push(w.iter().sum::<f64>() / D as f64);
+            // Mean of the per-axis weights; summed as w/D where the plain sum overflows.
+            let mean = w.iter().sum::<f64>() / D as f64;
+            self.wbar.push(if mean.is_finite() {
+                mean
+            } else {
+                w.iter().map(|v| v / D as f64).sum()
+            });
+            self.prec.push(prec);
             self.w.push(w);
         }
+        self.k.truncate(kq);
+        let localised = self.k.iter().any(|&k| k != 1.0);
         let n = self.kept.len();
         if n == 0 {
             return Err(CoreError::InvalidParameter {
@@ -449,6 +573,9 @@ impl<const D: usize> Fitter<D> {
                 acc[k] += wb * (pts[m].x[k] - x0[k]);
             }
         }
+        if !wsum.is_finite() {
+            return Err(self.overflow(points, kind, label, |w| w.is_finite()));
+        }
         let mut xbar = [0.0; D];
         for k in 0..D {
             xbar[k] = x0[k] + acc[k] / wsum;
@@ -471,6 +598,17 @@ impl<const D: usize> Fitter<D> {
             self.d.push(d);
         }
         let trace: f64 = (0..D).map(|k| mm[k][k]).sum();
+        if !trace.is_finite() {
+            return Err(CoreError::InvalidParameter {
+                name: "sigma",
+                reason: format!(
+                    "{}: the weighted moment matrix overflows (weights up to {:e}); \
+                     the standard deviations are too small",
+                    context(kind, label),
+                    self.wbar.iter().fold(0.0_f64, |a, &b| a.max(b))
+                ),
+            });
+        }
         let spread = (trace / wsum).sqrt();
         let mag = xbar.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
         let eig = sorted_eigenvalues::<D>(&mm)?;
@@ -502,12 +640,19 @@ impl<const D: usize> Fitter<D> {
         let s = spread;
         let mut gradient = SMatrix::<f64, D, D>::zeros();
         let mut t = [0.0; D];
-        let mut inv_blocks = [[[0.0; 4]; 4]; 3];
+        let mut cov_blocks = [[[0.0; 4]; 4]; 3];
+        let mut r_eff = 0.0;
         for i in 0..D {
             let mut nm = [[0.0; 4]; 4];
             let mut rhs = [0.0; 4];
+            // B = Σ K²π a aᵀ and C = Σ π a aᵀ, for the sandwich covariance and r_eff.
+            let mut bm = [[0.0; 4]; 4];
+            let mut cm = [[0.0; 4]; 4];
+            let mut overflow_at = None;
             for q in 0..n {
                 let w = self.w[q][i];
+                let pi = self.prec[q][i];
+                let kw = self.k[q];
                 let mut a = [1.0; 4];
                 for k in 0..D {
                     a[k + 1] = self.d[q][k] / s;
@@ -517,12 +662,34 @@ impl<const D: usize> Fitter<D> {
                     rhs[r] += w * a[r] * u;
                     for c in 0..=r {
                         nm[r][c] += w * a[r] * a[c];
+                        if localised {
+                            bm[r][c] += kw * w * a[r] * a[c];
+                            cm[r][c] += pi * a[r] * a[c];
+                        }
                     }
                 }
+                if overflow_at.is_none() && (0..=D).any(|r| !nm[r][r].is_finite()) {
+                    overflow_at = Some(q);
+                }
+            }
+            if let Some(q) = overflow_at {
+                let p = &pts[self.kept[q]];
+                return Err(CoreError::InvalidParameter {
+                    name: "sigma",
+                    reason: format!(
+                        "{}: point `{}`: weight {:e} overflows the normal equations of u{}",
+                        context(kind, label),
+                        p.id,
+                        self.w[q][i],
+                        ["x", "y", "z"][i]
+                    ),
+                });
             }
             for r in 0..=D {
                 for c in 0..r {
                     nm[c][r] = nm[r][c];
+                    bm[c][r] = bm[r][c];
+                    cm[c][r] = cm[r][c];
                 }
             }
             let Some(inv) = spd_inverse(&nm, D + 1) else {
@@ -559,7 +726,18 @@ impl<const D: usize> Fitter<D> {
             for j in 0..D {
                 gradient[(i, j)] = beta[j + 1] / s;
             }
-            inv_blocks[i] = inv;
+            if localised {
+                // Sandwich N⁻¹ B N⁻¹, and tr(N⁻¹ B N⁻¹ C) for r_eff.
+                let sand = mul4(&mul4(&inv, &bm, D + 1), &inv, D + 1);
+                let tr: f64 = {
+                    let sc = mul4(&sand, &cm, D + 1);
+                    (0..=D).map(|r| sc[r][r]).sum()
+                };
+                r_eff += n as f64 - 2.0 * (D + 1) as f64 + tr;
+                cov_blocks[i] = sand;
+            } else {
+                cov_blocks[i] = inv;
+            }
         }
 
         // Residuals and vᵀPv.
@@ -574,19 +752,25 @@ impl<const D: usize> Fitter<D> {
                     fitted += gradient[(i, j)] * self.d[q][j];
                 }
                 v[i] = p.u[i] - fitted;
-                vtpv += self.w[q][i] * v[i] * v[i];
+                vtpv += self.prec[q][i] * v[i] * v[i];
             }
             residuals.push(v);
         }
         let redundancy = n * D - D * (D + 1);
-        let exact = redundancy == 0;
-        let variance_factor = (!exact).then(|| vtpv / redundancy as f64);
+        let effective_redundancy = if localised {
+            // Zero up to rounding when r = 0 (then H = I).
+            if redundancy == 0 { 0.0 } else { r_eff }
+        } else {
+            redundancy as f64
+        };
+        let exact = redundancy == 0 || effective_redundancy.is_nan() || effective_redundancy <= 0.0;
+        let variance_factor = (!exact).then(|| vtpv / effective_redundancy);
         let factor = variance_factor.unwrap_or(1.0);
 
         let mut cov = DMatrix::<f64>::zeros(D * D, D * D);
         let mut var_translation = [0.0; D];
         for i in 0..D {
-            let inv = &inv_blocks[i];
+            let inv = &cov_blocks[i];
             var_translation[i] = factor * inv[0][0];
             for j in 0..D {
                 for k in 0..D {
@@ -606,6 +790,7 @@ impl<const D: usize> Fitter<D> {
                 fit: Some(FitStats {
                     n_points: n,
                     redundancy,
+                    effective_redundancy,
                     exact,
                     variance_factor,
                     residuals,
@@ -665,6 +850,17 @@ fn sorted_eigenvalues<const D: usize>(m: &[[f64; 3]; 3]) -> Result<[f64; D]> {
     }
     out.sort_by(|a, b| b.total_cmp(a));
     Ok(out)
+}
+
+/// Product of the leading `n×n` blocks of two `4×4` matrices.
+fn mul4(a: &[[f64; 4]; 4], b: &[[f64; 4]; 4], n: usize) -> [[f64; 4]; 4] {
+    let mut out = [[0.0; 4]; 4];
+    for r in 0..n {
+        for c in 0..n {
+            out[r][c] = (0..n).map(|k| a[r][k] * b[k][c]).sum();
+        }
+    }
+    out
 }
 
 /// Inverse of a symmetric positive-definite `n×n` matrix (`n ≤ 4`) by Cholesky

@@ -45,20 +45,34 @@ pub enum RegionKind {
 /// Statistics of a weighted least-squares fit `u = t + G·(x − x̄)`.
 #[derive(Debug, Clone, PartialEq)]
 pub struct FitStats<const D: usize> {
-    /// Number of points in the fit.
+    /// Number of points in the fit (points with negligible distance weight are not
+    /// counted: they are not used).
     pub n_points: usize,
-    /// Redundancy (degrees of freedom) `r = n·D − D·(D+1)`.
+    /// Redundancy `r = n·D − D·(D+1)`: the integer count of observations beyond the
+    /// unknowns, for the `n` points used.
     pub redundancy: usize,
+    /// Effective redundancy `r_eff = E[vᵀPv]/σ₀²`, the number the variance factor divides
+    /// by. Equal to `redundancy` without distance weighting; with a distance kernel the
+    /// kernel only localises the fit, far points barely influence it, and `r_eff` (not
+    /// an integer) accounts for that (see [`lsq`] module docs). 0 when the fit is exact.
+    pub effective_redundancy: f64,
     /// True when `r = 0`: the fit is exact and says nothing about precision.
     pub exact: bool,
-    /// A-posteriori variance factor `σ̂₀² = vᵀPv / r` (dimensionless when weights are
-    /// `1/σ²`; m² with unit weights). `None` when the fit is exact.
+    /// A-posteriori variance factor `σ̂₀² = vᵀPv / r_eff`, `P` the precision weights
+    /// (dimensionless when weights are `1/σ²`; m² with unit weights). `None` when the
+    /// fit is exact.
     pub variance_factor: Option<f64>,
     /// Residuals `v = u_observed − u_fitted` per member point, metres, in member order.
     pub residuals: Vec<[f64; D]>,
     /// Covariance of `vec(G)` taken row by row (`G[0][0], G[0][1], …`), `D²×D²`,
-    /// scaled by the a-posteriori variance factor when the fit has redundancy and by
-    /// the a-priori factor 1 when it is exact.
+    /// dimensionless, scaled by the a-posteriori variance factor when the fit has
+    /// redundancy and by the a-priori factor `σ₀² = 1` when it is exact.
+    ///
+    /// **Exact fit without stated precision** (`exact` and unit weights): the a-priori
+    /// factor is then an arbitrary 1 m², so this matrix only shows the geometry's
+    /// relative strength, not a precision; do not report standard deviations from it.
+    /// With precision weights `1/σ²` and an exact fit it is the propagated a-priori
+    /// covariance and meaningful.
     pub cov_gradient: DMatrix<f64>,
 }
 

@@ -21,6 +21,12 @@ use super::{GradientEstimate, RegionKind, Rejected};
 use crate::error::{CoreError, Result};
 use crate::points::PointSet;
 
+/// Largest number of grid nodes accepted by [`Centres::Grid`] (10⁸). Every node is one
+/// fit, so a larger grid would run for hours; a node count beyond it is almost always
+/// a mistake in `counts` or `spacing`. Not a published constant: chosen to bound the
+/// run time.
+pub const MAX_GRID_NODES: usize = 100_000_000;
+
 /// Where neighbourhoods are centred.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Centres<const D: usize> {
@@ -49,6 +55,11 @@ pub enum Selection {
     },
     /// Every point within `radius_m` (inclusive) of the centre; neighbourhoods with fewer
     /// than `min_points` are rejected.
+    ///
+    /// Cost: each neighbourhood holds every point within the radius, so a radius that
+    /// covers most of the set makes the run `O(n²)` in time (each of `n` centres fits
+    /// `~n` points) although memory stays `O(n)`. Choose the radius from the point
+    /// spacing (a few spacings), or use [`Selection::Nearest`] for a bounded cost.
     Radius {
         /// Search radius, metres; positive and finite.
         radius_m: f64,
@@ -58,9 +69,15 @@ pub enum Selection {
 }
 
 impl Selection {
-    fn validate(&self, dim: usize) -> Result<()> {
+    fn validate(&self, dim: usize, n_points: usize) -> Result<()> {
         match *self {
             Selection::Nearest { k } => {
+                if k > n_points {
+                    return Err(CoreError::InvalidParameter {
+                        name: "k",
+                        reason: format!("k = {k} exceeds the {n_points} points in the set"),
+                    });
+                }
                 if k < dim + 1 {
                     return Err(CoreError::InvalidParameter {
                         name: "k",
@@ -100,7 +117,7 @@ impl Selection {
 
 impl<const D: usize> Centres<D> {
     /// Check grid parameters: finite origin, positive finite spacing, ≥ 1 node per axis,
-    /// node count without overflow.
+    /// at most [`MAX_GRID_NODES`] nodes.
     fn validate(&self) -> Result<()> {
         if let Centres::Grid {
             origin,
@@ -128,15 +145,18 @@ impl<const D: usize> Centres<D> {
                     reason: format!("grid needs at least one node per axis, got {counts:?}"),
                 });
             }
-            if counts
-                .iter()
-                .try_fold(1usize, |a, &c| a.checked_mul(c))
-                .is_none()
-            {
-                return Err(CoreError::InvalidParameter {
-                    name: "counts",
-                    reason: format!("grid of {counts:?} nodes is too large"),
-                });
+            match counts.iter().try_fold(1usize, |a, &c| a.checked_mul(c)) {
+                Some(total) if total <= MAX_GRID_NODES => {}
+                _ => {
+                    let total: f64 = counts.iter().map(|&c| c as f64).product();
+                    return Err(CoreError::InvalidParameter {
+                        name: "counts",
+                        reason: format!(
+                            "grid of {counts:?} = {total:.3e} nodes exceeds the limit of \
+                             {MAX_GRID_NODES} nodes"
+                        ),
+                    });
+                }
             }
         }
         Ok(())
@@ -150,9 +170,10 @@ impl<const D: usize> Centres<D> {
 /// Estimates have kind [`RegionKind::Neighbourhood`]; members are nearest first.
 ///
 /// # Errors
-/// `InvalidParameter` for `k < D+1`, a radius that is not positive and finite,
-/// `min_points < D+1`, a grid with non-positive spacing, zero nodes or a non-finite origin,
-/// bad fit options, or coordinates too large for the spatial index.
+/// `InvalidParameter` for `k < D+1` or `k` above the number of points, a radius that is
+/// not positive and finite, `min_points < D+1`, a grid with non-positive spacing, zero
+/// nodes, more than [`MAX_GRID_NODES`] nodes or a non-finite origin, bad fit options, or
+/// coordinates too large for the spatial index.
 pub fn fit_neighbourhoods_with<const D: usize>(
     points: &PointSet<D>,
     centres: &Centres<D>,
@@ -161,7 +182,7 @@ pub fn fit_neighbourhoods_with<const D: usize>(
     mut sink: impl FnMut(std::result::Result<GradientEstimate<D>, Rejected>),
 ) -> Result<()> {
     opts.validate()?;
-    sel.validate(D)?;
+    sel.validate(D, points.len())?;
     centres.validate()?;
 
     // The tree holds coordinates relative to the plain centroid: small numbers for

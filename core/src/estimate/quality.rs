@@ -22,6 +22,13 @@
 //! An element is degenerate (zero area or volume) when `|det E| ≤ 1e-12·(Σ|e_k|²)^(D/2)`,
 //! `E = [e_1 … e_D]` the edge vectors from vertex 0. The test is relative, so it does
 //! not depend on the unit of length or on the size of the element.
+//!
+//! ## Scaling
+//! Angles, ratios and the degeneracy test do not depend on the size of the element, but
+//! their intermediate products (squared lengths to the third power, `det²`) overflow for
+//! edges near 10¹⁵⁰ m and underflow near 10⁻¹⁵⁰ m. The edge vectors are therefore first
+//! divided by [`edge_scale`], a power of two close to the largest edge component (exact
+//! in floating point), and only the signed area / volume are scaled back to m² / m³.
 
 use std::f64::consts::FRAC_PI_3;
 use std::fmt;
@@ -32,6 +39,22 @@ use crate::error::{CoreError, Result};
 
 /// Relative tolerance of the degeneracy test `|det E| ≤ tol·(Σ|e_k|²)^(D/2)`.
 pub const DEGENERATE_TOL: f64 = 1e-12;
+
+/// Power of two near the largest absolute component of the edge vectors `edges`
+/// (metres), for scaling them to unit size before scale-invariant metrics are formed.
+/// Division by a power of two is exact, so the metrics of ordinary elements are
+/// unchanged bit for bit. Returns 1 when every component is zero or one is not finite.
+pub fn edge_scale(edges: &[f64]) -> f64 {
+    let m = edges.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
+    if m > 0.0 && m.is_finite() {
+        // 2^⌊log2 m⌋ is within a factor 2 of m; powi keeps it exact for every normal m.
+        let e = m.log2().floor() as i32;
+        let p = 2f64.powi(e);
+        if p > 0.0 && p.is_finite() { p } else { 1.0 }
+    } else {
+        1.0
+    }
+}
 
 /// Shape metrics of one triangle.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
@@ -59,6 +82,10 @@ impl TriangleQuality {
     /// offsets.
     #[inline]
     pub fn from_edges(e1: [f64; 2], e2: [f64; 2]) -> Self {
+        // Scale to unit size (module docs, "Scaling"); f = x2 − x1 may reach twice that.
+        let p = edge_scale(&[e1[0], e1[1], e2[0], e2[1]]);
+        let e1 = [e1[0] / p, e1[1] / p];
+        let e2 = [e2[0] / p, e2[1] / p];
         let det = e1[0] * e2[1] - e1[1] * e2[0];
         let f = [e2[0] - e1[0], e2[1] - e1[1]]; // x2 − x1
         let l_e1 = e1[0] * e1[0] + e1[1] * e1[1]; // edge opposite vertex 2
@@ -83,7 +110,7 @@ impl TriangleQuality {
             f64::INFINITY
         };
         Self {
-            signed_area: 0.5 * det,
+            signed_area: 0.5 * det * p * p,
             min_angle_rad,
             aspect_ratio,
             degenerate: cross <= DEGENERATE_TOL * (l_e1 + l_e2),
@@ -148,6 +175,12 @@ impl TetrahedronQuality {
 
     /// Metrics from the edge vectors `e_k = x_k − x0` (metres).
     pub fn from_edges(e1: [f64; 3], e2: [f64; 3], e3: [f64; 3]) -> Self {
+        // Scale to unit size (module docs, "Scaling").
+        let p = edge_scale(&[
+            e1[0], e1[1], e1[2], e2[0], e2[1], e2[2], e3[0], e3[1], e3[2],
+        ]);
+        let sc = |e: [f64; 3]| [e[0] / p, e[1] / p, e[2] / p];
+        let (e1, e2, e3) = (sc(e1), sc(e2), sc(e3));
         let c23 = cross3(e2, e3);
         let c31 = cross3(e3, e1);
         let c12 = cross3(e1, e2);
@@ -180,7 +213,7 @@ impl TetrahedronQuality {
         .into_iter()
         .fold(f64::INFINITY, f64::min);
         Self {
-            signed_volume: det / 6.0,
+            signed_volume: det / 6.0 * p * p * p,
             min_dihedral_rad,
             radius_ratio,
             degenerate: vol6 <= DEGENERATE_TOL * (l1 + l2 + l3).powf(1.5),
@@ -380,6 +413,48 @@ mod tests {
         assert!((t.radius_ratio - 1.0).abs() < 1e-13);
         // Edge length 2√2: V = a³/(6√2) = 8/3.
         assert!((t.signed_volume.abs() - 8.0 / 3.0).abs() < 1e-13);
+    }
+
+    #[test]
+    fn metrics_do_not_depend_on_size() {
+        // Source: elementary geometry: an equilateral triangle has all angles 60° and
+        // R = 2r; a regular tetrahedron has dihedral angle arccos(1/3) and R = 3r, at
+        // every size. 1e±150 m makes squared lengths cubed (and det²) overflow or
+        // underflow without the scaling.
+        let h = 3f64.sqrt() / 2.0;
+        for size in [1e150, 1e-150, 1e300, 1e-300] {
+            let q =
+                TriangleQuality::from_vertices([[0.0, 0.0], [size, 0.0], [0.5 * size, h * size]]);
+            assert!(!q.degenerate, "{size}");
+            assert!((q.min_angle_rad - FRAC_PI_3).abs() < 1e-14, "{size}: {q:?}");
+            assert!((q.aspect_ratio - 1.0).abs() < 1e-13, "{size}: {q:?}");
+            assert!(QualityThresholds::default().check_triangle(&q).is_none());
+        }
+        // Signed area scaled back to m²: (√3/4)·a².
+        let q = TriangleQuality::from_vertices([[0.0, 0.0], [1e150, 0.0], [0.5e150, h * 1e150]]);
+        assert!((q.signed_area / (h / 2.0 * 1e300) - 1.0).abs() < 1e-14);
+        for size in [1e150, 1e-150] {
+            let t = TetrahedronQuality::from_vertices([
+                [size, size, size],
+                [size, -size, -size],
+                [-size, size, -size],
+                [-size, -size, size],
+            ]);
+            assert!(!t.degenerate, "{size}");
+            assert!(
+                (t.min_dihedral_rad - (1.0f64 / 3.0).acos()).abs() < 1e-14,
+                "{size}: {t:?}"
+            );
+            assert!((t.radius_ratio - 1.0).abs() < 1e-13, "{size}: {t:?}");
+            assert!(QualityThresholds::default().check_tetrahedron(&t).is_none());
+        }
+        // A flat triangle stays degenerate at every size.
+        for size in [1e150, 1e-150] {
+            let z = TriangleQuality::from_vertices([[0.0, 0.0], [size, 0.0], [2.0 * size, 0.0]]);
+            assert!(z.degenerate, "{size}");
+        }
+        assert_eq!(edge_scale(&[0.0, 0.0]), 1.0);
+        assert_eq!(edge_scale(&[3.0, -5.0]), 4.0);
     }
 
     #[test]
