@@ -60,8 +60,8 @@ pub mod thermal;
 pub use epochs::{DAYS_PER_JULIAN_YEAR, Epoch, EpochPoint, SECONDS_PER_DAY};
 pub use rate::{Slope, weighted_slope};
 pub use series::{
-    ComponentRate, EpochStrain, Excluded, Increment, Rate, RateWeighting, RegionRate,
-    RegionSeries, Regions, RejectedRegion, SeriesOptions, StrainSeries, StrainSigma,
-    rotation_component_names, strain_component_names, strain_series,
+    ComponentRate, EpochStrain, Excluded, Increment, Rate, RateWeighting, RegionRate, RegionSeries,
+    Regions, RejectedRegion, SeriesOptions, StrainSeries, StrainSigma, rotation_component_names,
+    strain_component_names, strain_series,
 };
 pub use thermal::ThermalCompensation;

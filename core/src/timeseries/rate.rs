@@ -9,8 +9,8 @@
 //! var b = σ̂₀² / S_tt
 //! ```
 //!
-//! (Draper & Smith, *Applied Regression Analysis*, 3rd ed., ch. 1 and §9.2, weighted
-//! least squares.) The standard deviation always uses the a-posteriori variance factor
+//! (Draper & Smith, *Applied Regression Analysis*, 3rd ed., ch. 1, and the
+//! chapter on weighted least squares; §9.2 from memory.) The standard deviation always uses the a-posteriori variance factor
 //! `σ̂₀²` from the residuals when `n ≥ 3`. With two samples the line passes through
 //! both, there are no residual degrees of freedom, and the slope's standard deviation is
 //! the a-priori one `sqrt(1/S_tt)` (variance factor 1) when standard deviations were
@@ -72,10 +72,16 @@ pub fn weighted_slope(t: &[f64], y: &[f64], sigma: Option<&[f64]>) -> Result<Slo
     for k in 0..n {
         let id = || format!("sample {}", k + 1);
         if !t[k].is_finite() {
-            return Err(CoreError::NonFinite { id: id(), field: "t" });
+            return Err(CoreError::NonFinite {
+                id: id(),
+                field: "t",
+            });
         }
         if !y[k].is_finite() {
-            return Err(CoreError::NonFinite { id: id(), field: "y" });
+            return Err(CoreError::NonFinite {
+                id: id(),
+                field: "y",
+            });
         }
         if let Some(s) = sigma {
             let sk = s[k];
@@ -156,7 +162,11 @@ mod tests {
         ));
         assert!(matches!(
             weighted_slope(&[1.0], &[0.0], None),
-            Err(CoreError::TooFewPoints { needed: 2, got: 1, .. })
+            Err(CoreError::TooFewPoints {
+                needed: 2,
+                got: 1,
+                ..
+            })
         ));
         let two = weighted_slope(&[0.0, 2.0], &[0.0, 1.0], None).expect("fit");
         assert_eq!(two.std_slope, None);

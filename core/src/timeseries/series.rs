@@ -31,7 +31,11 @@ pub fn strain_component_names<const D: usize>() -> &'static [&'static str] {
 /// Names of the rotation components: 2D `omega` (radians, counter-clockwise positive);
 /// 3D `wx, wy, wz` (rotation vector `curl(u)/2`, radians, right-hand rule).
 pub fn rotation_component_names<const D: usize>() -> &'static [&'static str] {
-    if D == 2 { &["omega"] } else { &["wx", "wy", "wz"] }
+    if D == 2 {
+        &["omega"]
+    } else {
+        &["wx", "wy", "wz"]
+    }
 }
 
 /// Index pairs `(i, j)` of the strain components, in [`strain_component_names`] order.
@@ -431,9 +435,7 @@ pub fn strain_series<const D: usize>(
             }
         }
         let days = (e.time_s - base.time_s) / SECONDS_PER_DAY;
-        let thermal = temps
-            .as_ref()
-            .map(|(th, t)| th.thermal_strain(t[k], t[b]));
+        let thermal = temps.as_ref().map(|(th, t)| th.thermal_strain(t[k], t[b]));
         for est in estimates.0 {
             let Some(&ri) = index_of.get(est.label.as_str()) else {
                 continue;
@@ -683,15 +685,14 @@ fn region_rate<const D: usize>(
             samples
                 .iter()
                 .map(|s| {
-                    map.get(&(region.to_owned(), s.epoch.clone())).ok_or_else(|| {
-                        CoreError::InvalidParameter {
+                    map.get(&(region.to_owned(), s.epoch.clone()))
+                        .ok_or_else(|| CoreError::InvalidParameter {
                             name: "strain_sigma",
                             reason: format!(
                                 "no standard deviation given for region `{region}` at epoch `{}`",
                                 s.epoch
                             ),
-                        }
-                    })
+                        })
                 })
                 .collect::<Result<_>>()?,
         ),

@@ -1,8 +1,8 @@
 //! Temperature compensation: removing the free thermal strain of an isotropic material.
 //!
 //! A free (unrestrained) isotropic solid heated by `ΔT` strains by `ε_ij = α·ΔT·δ_ij`
-//! (Timoshenko & Goodier, *Theory of Elasticity*, 3rd ed., ch. 13, thermal stress): equal
-//! extension in every direction, no shear. The compensated strain is therefore
+//! (Timoshenko & Goodier, *Theory of Elasticity*, 3rd ed., chapter on thermal stress;
+//! ch. 13 from memory): equal extension in every direction, no shear. The compensated strain is therefore
 //!
 //! ```text
 //! ε_ii,comp = ε_ii − α·(T − T_baseline)      (normal components)
