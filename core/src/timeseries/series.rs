@@ -565,10 +565,10 @@ fn displacement_set<const D: usize>(base: &Epoch<D>, e: &Epoch<D>) -> Result<Poi
     PointSet::new(pts).map_err(|err| e.wrap(err))
 }
 
-/// Run the region's estimator on the regions `available` (indices into the region
-/// list): accepted estimates and `(label, reason)` of quality rejections.
+/// Accepted estimates and `(label, reason)` of quality rejections.
 type Estimates<const D: usize> = (Vec<GradientEstimate<D>>, Vec<(String, String)>);
 
+/// Run the region's estimator on the regions `available` (indices into the region list).
 fn estimate<const D: usize>(
     regions: &Regions,
     set: &PointSet<D>,
