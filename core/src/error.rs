@@ -146,6 +146,51 @@ pub enum CoreError {
         /// The offending latitude, in degrees.
         degrees: f64,
     },
+    /// The epochs of a time series are not in strictly increasing time order
+    /// (an earlier or equal time follows a later one).
+    #[error(
+        "epoch `{next}` (t = {next_time_s} s) does not come after epoch `{previous}` (t = {previous_time_s} s); epochs must be strictly increasing in time"
+    )]
+    EpochsOutOfOrder {
+        /// Label of the epoch listed first.
+        previous: String,
+        /// Its time, seconds since 1970-01-01T00:00:00Z.
+        previous_time_s: f64,
+        /// Label of the epoch listed next, whose time is not later.
+        next: String,
+        /// Its time, seconds since 1970-01-01T00:00:00Z.
+        next_time_s: f64,
+    },
+    /// Two epochs of one time series share a label.
+    #[error("duplicate epoch label `{label}`")]
+    DuplicateEpoch {
+        /// The repeated label.
+        label: String,
+    },
+    /// The chosen baseline epoch is not in the series.
+    #[error("baseline epoch `{label}` is not in the series; epochs: {known}")]
+    BaselineNotInSeries {
+        /// The label asked for.
+        label: String,
+        /// The labels of the series, comma-separated.
+        known: String,
+    },
+    /// Temperature compensation was asked for but an epoch has no temperature.
+    #[error("epoch `{epoch}` has no temperature, needed for temperature compensation")]
+    MissingTemperature {
+        /// Label of the epoch without a temperature.
+        epoch: String,
+    },
+    /// A problem with the data of one epoch of a time series (for example a
+    /// non-finite coordinate or a repeated point ID), naming the epoch.
+    #[error("epoch `{epoch}`: {source}")]
+    InEpoch {
+        /// Label of the epoch.
+        epoch: String,
+        /// The problem itself, naming the point or field.
+        #[source]
+        source: Box<CoreError>,
+    },
 }
 
 /// Result alias for the core.

@@ -23,6 +23,7 @@ pub mod geodesy;
 pub mod kinematics;
 pub mod points;
 pub mod rosette;
+pub mod timeseries;
 
 pub use error::{CoreError, Result};
 pub use points::{Point, PointSet};
