@@ -14,6 +14,7 @@ use clap::{Args, ValueEnum};
 use super::CliError;
 use crate::input::{self, ElementRow, GroupRows, Points, ReadOptions};
 use crate::output::{self, Cell, Header, OutputFormat};
+use crate::pipeline::stress::{StressFlags, StressSpec, StressState};
 use crate::units::{LengthUnit, StrainUnit};
 
 /// Default `--k`.
@@ -45,6 +46,21 @@ Input (POINTS_FILE, CSV with a header or JSON; chosen by content):
 --groups FILE:   CSV group,point_id (one row per member) or JSON
                  {\"groups\": [{\"name\", \"point_ids\"}]}
 
+--method rosette: POINTS_FILE holds strain-gauge readings instead of points:
+  CSV rosette,gauge,angle_deg,reading[,zero]  one row per gauge, grouped by rosette ID;
+  angle_deg counter-clockwise from the rosette's x axis; reading and zero (the
+  baseline, optional) are indicated strains in --reading-unit. JSON: {\"rosettes\":
+  [{\"id\", \"gauges\": [{\"id\", \"angle_deg\", \"reading\", [\"zero\"]}]}]}.
+  Corrections (each optional, listed per row): --gauge-factor with
+  --instrument-gauge-factor, --transverse-sensitivity with --transverse-nu0,
+  --thermal-coefficients with --temperature [and --reference-temperature].
+
+--material ID (or --youngs-modulus-gpa E --poisson-ratio NU) appends stress columns
+  in MPa to every row (2D needs --stress-state plane-stress|plane-strain; 3D uses
+  the full Hooke's law). Presets: steel-en1993, aluminium-en1999, concrete-c12-15 …
+  concrete-c90-105 (EN 1992-1-1 classes). Stress assumes a homogeneous, isotropic,
+  linear elastic material and is not a structural assessment.
+
 Output: per-region rows and a `rejected` section (label, members, reason). Every
 column carries its unit (CSV/JSON names end in it, e.g. exx_microstrain, theta1_deg);
 exy is tensor shear strain, gxy = 2*exy engineering shear strain; angles in degrees
@@ -71,6 +87,8 @@ pub enum Method {
     Grid,
     /// One homogeneous least-squares fit over the whole network.
     Network,
+    /// Strain-gauge rosettes: POINTS_FILE holds gauge readings (see below).
+    Rosette,
 }
 
 impl Method {
@@ -83,6 +101,7 @@ impl Method {
             Self::Neighbourhood => "neighbourhood",
             Self::Grid => "grid",
             Self::Network => "network",
+            Self::Rosette => "rosette",
         }
     }
 
@@ -190,6 +209,81 @@ pub struct AnalyzeArgs {
     /// No progress bar (it is shown on stderr for large files when stderr is a terminal).
     #[arg(long, short = 'q')]
     pub quiet: bool,
+
+    /// Unit of `reading` and `zero` in a --method rosette file, and of the
+    /// --thermal-coefficients [default: microstrain].
+    #[arg(long, value_enum, value_name = "UNIT")]
+    pub reading_unit: Option<StrainUnit>,
+
+    /// Gauge factor of the gauges (--method rosette); with --instrument-gauge-factor,
+    /// readings are scaled by K0/K [default: unset, no correction].
+    #[arg(long, value_name = "K")]
+    pub gauge_factor: Option<f64>,
+
+    /// Gauge-factor setting of the instrument, K0 (with --gauge-factor).
+    #[arg(long, value_name = "K0")]
+    pub instrument_gauge_factor: Option<f64>,
+
+    /// Transverse sensitivity coefficient Kt of the gauges (--method rosette, |Kt| < 1);
+    /// needs --transverse-nu0 [default: unset, no correction].
+    #[arg(long, value_name = "KT", allow_negative_numbers = true)]
+    pub transverse_sensitivity: Option<f64>,
+
+    /// Poisson ratio of the material on which Kt was calibrated (with
+    /// --transverse-sensitivity; no default).
+    #[arg(long, value_name = "NU0", allow_negative_numbers = true)]
+    pub transverse_nu0: Option<f64>,
+
+    /// Thermal output of the gauges (--method rosette): apparent strain
+    /// c0 + c1*T + c2*T^2 + … with T in °C, coefficients in --reading-unit per °C^i;
+    /// needs --temperature [default: unset, no correction].
+    #[arg(
+        long,
+        value_name = "C0,C1,...",
+        value_delimiter = ',',
+        allow_negative_numbers = true
+    )]
+    pub thermal_coefficients: Option<Vec<f64>>,
+
+    /// Temperature at the readings, °C (with --thermal-coefficients).
+    #[arg(long, value_name = "T", allow_negative_numbers = true)]
+    pub temperature: Option<f64>,
+
+    /// Temperature at the zero readings, °C; the thermal output at it is taken off
+    /// as well [default: unset, the polynomial is taken as zero there].
+    #[arg(long, value_name = "T0", allow_negative_numbers = true)]
+    pub reference_temperature: Option<f64>,
+
+    /// Append stress columns (MPa) computed with this material preset, e.g.
+    /// steel-en1993, aluminium-en1999, concrete-c30-37 [default: unset, no stress].
+    #[arg(long, value_name = "ID")]
+    pub material: Option<String>,
+
+    /// 2D idealisation for the stress columns (required with --material in 2D).
+    #[arg(long, value_enum)]
+    pub stress_state: Option<StressState>,
+
+    /// Young's modulus in GPa for the stress columns, instead of --material (with
+    /// --poisson-ratio).
+    #[arg(long, value_name = "E")]
+    pub youngs_modulus_gpa: Option<f64>,
+
+    /// Poisson's ratio for the stress columns, instead of --material (with
+    /// --youngs-modulus-gpa).
+    #[arg(long, value_name = "NU", allow_negative_numbers = true)]
+    pub poisson_ratio: Option<f64>,
+}
+
+impl AnalyzeArgs {
+    /// The stress flags as given.
+    pub fn stress_flags(&self) -> StressFlags<'_> {
+        StressFlags {
+            material: self.material.as_deref(),
+            youngs_modulus_gpa: self.youngs_modulus_gpa,
+            poisson_ratio: self.poisson_ratio,
+            state: self.stress_state,
+        }
+    }
 }
 
 /// Estimator parameters, validated and in core units (metres, degrees as given,
@@ -234,6 +328,8 @@ pub struct Request {
     pub length_unit: LengthUnit,
     /// Unit for strains in the output.
     pub strain_unit: StrainUnit,
+    /// Stress columns to append (`--material`), if asked for.
+    pub stress: Option<StressSpec>,
     /// The output header: input, method, units and the parameters that apply.
     pub header: Header,
 }
@@ -281,6 +377,7 @@ fn check_flags(a: &AnalyzeArgs) -> Result<(), CliError> {
         )));
     }
     positive("--strain-resolution", a.strain_resolution)?;
+    crate::pipeline::rosette::check_method_flags(a)?;
     Ok(())
 }
 
@@ -343,6 +440,12 @@ fn resolve_method(a: &AnalyzeArgs, dim: usize) -> Result<Method, CliError> {
 /// Read and check everything named by the flags. Nothing is written.
 pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
     check_flags(a)?;
+    if a.method == Some(Method::Rosette) {
+        return Err(usage(
+            "--method rosette reads gauge readings, not points; its request is built by \
+             pipeline::rosette::prepare",
+        ));
+    }
     let points = input::read_points(
         &a.points_file,
         &ReadOptions {
@@ -397,6 +500,10 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
         a.strain_unit,
     );
     header.parameters = header_parameters(method, a, weight_scale);
+    let stress = StressSpec::from_flags(&a.stress_flags(), dim, a.strain_unit)?;
+    if let Some(s) = &stress {
+        header.parameters.extend(s.parameters());
+    }
     Ok(Request {
         points,
         method,
@@ -405,6 +512,7 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
         params,
         length_unit: unit,
         strain_unit: a.strain_unit,
+        stress,
         header,
     })
 }
@@ -451,7 +559,7 @@ fn header_parameters(
                 p.push((format!("grid_spacing_{u}"), Cell::Num(l)));
             }
         }
-        Method::Grid | Method::Network => {}
+        Method::Grid | Method::Network | Method::Rosette => {}
     }
     if matches!(method, Method::Groups | Method::Neighbourhood) {
         let w = a
@@ -534,19 +642,26 @@ pub fn open_output(path: Option<&Path>) -> Result<(Box<dyn Write>, Option<Pendin
 /// Run `kinema analyze`: read and check, compute and write; an output file appears only
 /// when everything succeeded.
 pub fn run(a: &AnalyzeArgs) -> Result<(), CliError> {
-    let request = prepare(a)?;
     let target = a
         .output
         .as_deref()
         .map_or_else(|| "stdout".to_owned(), |p| p.display().to_string());
+    if a.method == Some(Method::Rosette) {
+        check_flags(a)?;
+        resolve_method(a, 2)?;
+        let request = crate::pipeline::rosette::prepare(a)?;
+        let (out, pending) = open_output(a.output.as_deref())?;
+        let mut sink = output::sink(a.format, out);
+        crate::pipeline::rosette::run(&request, sink.as_mut(), &target)?;
+        drop(sink);
+        return pending.map_or(Ok(()), PendingFile::commit);
+    }
+    let request = prepare(a)?;
     let (out, pending) = open_output(a.output.as_deref())?;
     let mut sink = output::sink(a.format, out);
     crate::pipeline::run(&request, sink.as_mut(), &target)?;
     drop(sink);
-    match pending {
-        Some(p) => p.commit(),
-        None => Ok(()),
-    }
+    pending.map_or(Ok(()), PendingFile::commit)
 }
 
 #[cfg(test)]

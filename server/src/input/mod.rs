@@ -1,5 +1,6 @@
 //! Reading input files: monitoring points (CSV or JSON), and the element and group
-//! files used by `--method elements` and `--method groups`.
+//! files used by `--method elements` and `--method groups`, and the gauge readings
+//! of `--method rosette`.
 //!
 //! Everything is converted to metres here, with the length unit declared on the
 //! command line. Every malformed input becomes an [`InputError`] whose message
@@ -14,6 +15,7 @@ mod error;
 mod groups;
 mod json_doc;
 mod json_points;
+mod rosette;
 mod source;
 
 use std::path::Path;
@@ -23,6 +25,7 @@ use kinema_core::{Point, PointSet};
 pub use elements::{ElementRow, read_elements};
 pub use error::InputError;
 pub use groups::{GroupRows, read_groups};
+pub use rosette::{RosetteRows, read_rosettes};
 
 use crate::units::LengthUnit;
 

@@ -12,6 +12,8 @@
 
 pub mod columns;
 pub mod lattice;
+pub mod rosette;
+pub mod stress;
 
 use std::collections::BTreeMap;
 use std::io;
@@ -44,6 +46,7 @@ fn section_name(method: Method) -> &'static str {
         Method::Neighbourhood => "neighbourhoods",
         Method::Grid => "grid_nodes",
         Method::Network => "network",
+        Method::Rosette => rosette::SECTION,
     }
 }
 
@@ -51,7 +54,7 @@ fn extra_for(method: Method) -> Extra {
     match method {
         Method::Delaunay | Method::Elements => Extra::Shape,
         Method::Groups | Method::Neighbourhood | Method::Network => Extra::Fit,
-        Method::Grid => Extra::None,
+        Method::Grid | Method::Rosette => Extra::None,
     }
 }
 
@@ -154,6 +157,8 @@ struct Writer<'a, const D: usize> {
     units: Units,
     opts: KinematicsOptions,
     extra: Extra,
+    /// Stress columns to append to every row (`--material`).
+    stress: Option<&'a stress::StressSpec>,
     row: Vec<Cell>,
     io_error: Option<io::Error>,
     tally: Tally,
@@ -196,6 +201,23 @@ where
         match <Dim<D>>::strain_cells(g, &self.opts, self.units, &mut row) {
             Ok(adequate) => {
                 tail(&mut row);
+                if let Some(s) = self.stress
+                    && let Err(e) = s.cells(g, &mut row)
+                {
+                    self.tally.reject(
+                        Rejected {
+                            label: match row.swap_remove(0) {
+                                Cell::Text(t) => t,
+                                _ => String::new(),
+                            },
+                            members: members.to_vec(),
+                            reason: format!("stress not computed: {e}"),
+                        },
+                        "stress not computed",
+                    );
+                    self.row = row;
+                    return;
+                }
                 self.tally.accepted += 1;
                 if !adequate {
                     self.tally.inadequate += 1;
@@ -414,9 +436,14 @@ impl Context<'_> {
     {
         let method = self.request.method;
         let extra = extra_for(method);
+        let mut columns = <Dim<D>>::columns(self.units, extra);
+        let stress = self.request.stress.as_ref();
+        if let Some(s) = stress {
+            columns.extend(s.columns());
+        }
         let main = Section {
             name: section_name(method),
-            columns: <Dim<D>>::columns(self.units, extra),
+            columns,
         };
         sink.begin(&self.request.header, &[main, output::rejected_section()])
             .map_err(|e| self.out(e))?;
@@ -428,11 +455,15 @@ impl Context<'_> {
             units: self.units,
             opts: self.opts,
             extra,
+            stress,
             row: Vec::new(),
             io_error: None,
             tally: Tally::new(),
         };
-        let notes = body(&mut w)?;
+        let mut notes = body(&mut w)?;
+        if let Some(s) = stress {
+            notes.push(s.note());
+        }
         w.finish(notes).map_err(|e| self.out(e))
     }
 
@@ -524,6 +555,10 @@ impl Context<'_> {
                     Ok(Vec::new())
                 })
             }
+            Method::Rosette => Err(CliError::Usage(
+                "--method rosette reads gauge readings; it runs through pipeline::rosette"
+                    .to_owned(),
+            )),
             Method::Delaunay | Method::Grid => Err(CliError::Usage(format!(
                 "--method {} needs 2D points",
                 request.method.name()
