@@ -23,6 +23,8 @@ pub mod geodesy;
 pub mod kinematics;
 pub mod points;
 pub mod rosette;
+pub mod significance;
+pub mod uncertainty;
 
 pub use error::{CoreError, Result};
 pub use points::{Point, PointSet};
