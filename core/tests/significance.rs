@@ -14,6 +14,9 @@
 //!   (the square of a normal variable with mean √λ; Johnson, Kotz & Balakrishnan,
 //!   *Continuous Univariate Distributions*, vol. 2, ch. 29).
 
+// Index loops over parallel arrays read most plainly in these checks.
+#![allow(clippy::needless_range_loop)]
+
 use kinema_core::CoreError;
 use kinema_core::estimate::RegionKind;
 use kinema_core::estimate::lsq::{FitOptions, fit_points};

@@ -12,6 +12,9 @@
 //! - Rayleigh distribution CDF `1 − exp(−r²/(2s²))` for the radius of an isotropic
 //!   bivariate normal (any statistics text).
 
+// Index loops over parallel arrays read most plainly in these checks.
+#![allow(clippy::needless_range_loop)]
+
 use kinema_core::CoreError;
 use kinema_core::estimate::RegionKind;
 use kinema_core::estimate::lsq::{FitOptions, fit_points};
@@ -368,7 +371,9 @@ fn element_covariance_matches_monte_carlo() {
     let c = element_gradient_covariance(&x, &covs).expect("valid element");
     let mut rng = Rng::new(7);
     let n = 6000;
-    let mut samples = vec![Vec::with_capacity(n); 4];
+    let mut samples = (0..4)
+        .map(|_| Vec::with_capacity(n))
+        .collect::<Vec<Vec<f64>>>();
     for _ in 0..n {
         let u: Vec<[f64; 2]> = sig
             .iter()
@@ -427,7 +432,9 @@ fn monte_carlo_2d_matches_first_order() {
     assert!(!first.near_isotropic);
     let l = sampler(&c);
     let opts = KinematicsOptions::default();
-    let mut cols: Vec<Vec<f64>> = vec![Vec::with_capacity(N_MC); 9];
+    let mut cols: Vec<Vec<f64>> = (0..9)
+        .map(|_| Vec::with_capacity(N_MC))
+        .collect::<Vec<Vec<f64>>>();
     for _ in 0..N_MC {
         let d = draw(&mut rng, &l);
         let g = g0 + Matrix2::new(d[0], d[1], d[2], d[3]);
@@ -492,7 +499,9 @@ fn monte_carlo_3d_matches_first_order() {
         k0.principal.n3.expect("distinct"),
     ];
     let l = sampler(&c);
-    let mut cols: Vec<Vec<f64>> = vec![Vec::with_capacity(N_MC); 6];
+    let mut cols: Vec<Vec<f64>> = (0..6)
+        .map(|_| Vec::with_capacity(N_MC))
+        .collect::<Vec<Vec<f64>>>();
     let mut ang2 = [0.0_f64; 3];
     for _ in 0..N_MC {
         let d = draw(&mut rng, &l);

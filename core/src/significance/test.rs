@@ -503,7 +503,7 @@ fn cofactor_eigen(
         })?;
     let max = eig.eigenvalues.iter().fold(0.0_f64, |a, &b| a.max(b));
     let min = eig.eigenvalues.iter().fold(f64::INFINITY, |a, &b| a.min(b));
-    if !(max > 0.0) || min <= MIN_COFACTOR_CONDITION * max {
+    if max <= 0.0 || min <= MIN_COFACTOR_CONDITION * max {
         return Err(CoreError::SingularCovariance {
             name: name.to_owned(),
             reason: format!(

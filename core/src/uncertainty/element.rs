@@ -98,7 +98,7 @@ pub fn shape_gradients<const D: usize>(vertices: &[[f64; D]]) -> Result<Vec<[f64
     let det = e.determinant();
     let scale = e.iter().map(|v| v * v).sum::<f64>().powf(D as f64 / 2.0);
     let what = if D == 2 { "area" } else { "volume" };
-    if !(det.abs() > DEGENERATE_REL * scale) {
+    if !det.is_finite() || det.abs() <= DEGENERATE_REL * scale {
         return Err(CoreError::DegenerateElement {
             element: "element".into(),
             reason: format!(
