@@ -191,6 +191,24 @@ pub enum CoreError {
         #[source]
         source: Box<CoreError>,
     },
+    /// A covariance matrix is not a covariance: wrong size, a non-finite entry, not
+    /// symmetric, or not positive semi-definite.
+    #[error("covariance `{name}` is invalid: {reason}")]
+    InvalidCovariance {
+        /// Which covariance (e.g. `cov_ref`, `cov_gradient`, `vertex_cov[2]`).
+        name: String,
+        /// What is wrong, with the offending value.
+        reason: String,
+    },
+    /// A cofactor or covariance matrix that must be inverted is singular (or so badly
+    /// conditioned that its inverse is meaningless).
+    #[error("covariance `{name}` is singular: {reason}")]
+    SingularCovariance {
+        /// Which matrix (e.g. `strain cofactor`).
+        name: String,
+        /// The eigenvalue ratio or pivot that shows it, against its threshold.
+        reason: String,
+    },
 }
 
 /// Result alias for the core.

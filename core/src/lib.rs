@@ -23,7 +23,9 @@ pub mod geodesy;
 pub mod kinematics;
 pub mod points;
 pub mod rosette;
+pub mod significance;
 pub mod timeseries;
+pub mod uncertainty;
 
 pub use error::{CoreError, Result};
 pub use points::{Point, PointSet};
