@@ -24,6 +24,8 @@ pub const DEFAULT_MIN_ANGLE_DEG: f64 = 10.0;
 /// Default `--max-aspect-ratio`: the radius ratio R/(2r) (1 for an equilateral triangle; 5 is
 /// reached by an isosceles 19°/19°/142° triangle), the same as kinema-core's screen default.
 pub const DEFAULT_MAX_ASPECT_RATIO: f64 = 5.0;
+/// Default `--alpha`: the significance level of the strain test.
+pub const DEFAULT_ALPHA: f64 = 0.05;
 /// Default `--strain-resolution`, dimensionless.
 pub const DEFAULT_STRAIN_RESOLUTION: f64 = 1e-6;
 
@@ -206,6 +208,17 @@ pub struct AnalyzeArgs {
     #[arg(long, value_name = "STRAIN", default_value_t = DEFAULT_STRAIN_RESOLUTION)]
     pub strain_resolution: f64,
 
+    /// Significance level of the test of whether each region's strain is real
+    /// (strain_significant), 0 < alpha < 1.
+    #[arg(long, value_name = "ALPHA", default_value_t = DEFAULT_ALPHA)]
+    pub alpha: f64,
+
+    /// Trust the a-priori variance factor 1 of the stated precision (chi-square test and
+    /// a-priori standard deviations) even where a fit estimates one (default: F test with
+    /// the estimated factor wherever the fit has redundancy). Needs --use-precision.
+    #[arg(long)]
+    pub trust_apriori: bool,
+
     /// No progress bar (it is shown on stderr for large files when stderr is a terminal).
     #[arg(long, short = 'q')]
     pub quiet: bool,
@@ -308,6 +321,10 @@ pub struct EstimatorParams {
     pub max_aspect_ratio: f64,
     /// Strain resolution, dimensionless.
     pub strain_resolution: f64,
+    /// Significance level of the strain test.
+    pub alpha: f64,
+    /// Trust the a-priori variance factor.
+    pub trust_apriori: bool,
 }
 
 /// Everything the pipeline needs: validated input, resolved method and parameters,
@@ -377,6 +394,17 @@ fn check_flags(a: &AnalyzeArgs) -> Result<(), CliError> {
         )));
     }
     positive("--strain-resolution", a.strain_resolution)?;
+    if !(a.alpha > 0.0 && a.alpha < 1.0) {
+        return Err(usage(format!(
+            "--alpha must be between 0 and 1 (exclusive), got {}",
+            a.alpha
+        )));
+    }
+    if a.trust_apriori && !a.use_precision {
+        return Err(usage(
+            "--trust-apriori needs --use-precision: without stated precision there is no a-priori variance factor",
+        ));
+    }
     crate::pipeline::rosette::check_method_flags(a)?;
     Ok(())
 }
@@ -490,6 +518,8 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
         min_angle_deg: a.min_angle_deg,
         max_aspect_ratio: a.max_aspect_ratio,
         strain_resolution: a.strain_resolution,
+        alpha: a.alpha,
+        trust_apriori: a.trust_apriori,
     };
     let mut header = Header::new(
         a.points_file.display().to_string(),
@@ -576,6 +606,10 @@ fn header_parameters(
         p.push(("use_precision".into(), Cell::Bool(a.use_precision)));
     }
     p.push(("strain_resolution".into(), Cell::Num(a.strain_resolution)));
+    p.push(("alpha".into(), Cell::Num(a.alpha)));
+    if a.trust_apriori {
+        p.push(("variance_factor".into(), Cell::Text("a-priori (1)".into())));
+    }
     p
 }
 

@@ -10,7 +10,8 @@
 use kinema_core::estimate::FitStats;
 use kinema_core::estimate::quality::{TetrahedronQuality, TriangleQuality};
 use kinema_core::kinematics::{Adequacy, Degeneracy3, Kinematics2, Kinematics3};
-use nalgebra::DMatrix;
+use kinema_core::significance::TestResult;
+use kinema_core::uncertainty::{Uncertainty2, Uncertainty3};
 
 use crate::output::{Cell, Column};
 use crate::units::{LengthUnit, StrainUnit};
@@ -48,10 +49,6 @@ impl Units {
 
 fn deg(rad: f64) -> Cell {
     Cell::Num(rad.to_degrees())
-}
-
-fn opt_num(v: Option<f64>) -> Cell {
-    v.map_or(Cell::Empty, Cell::Num)
 }
 
 /// Columns of a 2D section: region, strain, then the `extra` block.
@@ -223,7 +220,6 @@ pub fn columns3(u: Units, extra: Extra) -> Vec<Column> {
 
 fn extra_columns(u: Units, extra: Extra, dim: usize) -> Vec<Column> {
     let l = u.length.label();
-    let s = u.strain.label();
     match (extra, dim) {
         (Extra::None, _) => vec![],
         (Extra::Shape, 2) => vec![
@@ -269,39 +265,7 @@ fn extra_columns(u: Units, extra: Extra, dim: usize) -> Vec<Column> {
                     sigma0_unit,
                     "a-posteriori standard deviation of unit weight (dimensionless with --use-precision, else a length)",
                 ),
-                Column::new(
-                    "sd_exx",
-                    s,
-                    "standard deviation of exx (empty for an exact fit without stated precision)",
-                ),
-                Column::new("sd_eyy", s, "standard deviation of eyy"),
             ];
-            if d == 3 {
-                c.push(Column::new("sd_ezz", s, "standard deviation of ezz"));
-            }
-            c.push(Column::new(
-                "sd_exy",
-                s,
-                "standard deviation of the tensor shear strain exy",
-            ));
-            if d == 3 {
-                c.push(Column::new(
-                    "sd_eyz",
-                    s,
-                    "standard deviation of the tensor shear strain eyz",
-                ));
-                c.push(Column::new(
-                    "sd_exz",
-                    s,
-                    "standard deviation of the tensor shear strain exz",
-                ));
-            } else {
-                c.push(Column::new(
-                    "sd_rotation",
-                    "deg",
-                    "standard deviation of the rotation",
-                ));
-            }
             c.push(Column::new(
                 "ux",
                 l,
@@ -417,18 +381,6 @@ pub fn tetrahedron_cells(q: &TetrahedronQuality, row: &mut Vec<Cell>) {
     row.extend([deg(q.min_dihedral_rad), Cell::Num(q.radius_ratio)]);
 }
 
-/// Standard deviation of the linear combination `Σ c_k·vec(G)_k` from the covariance
-/// of `vec(G)` (row-major), or `None` when the covariance is not meaningful.
-fn sd_of(cov: &DMatrix<f64>, terms: &[(usize, f64)]) -> Option<f64> {
-    let mut var = 0.0;
-    for &(i, a) in terms {
-        for &(j, b) in terms {
-            var += a * b * cov.get((i, j)).copied()?;
-        }
-    }
-    (var.is_finite() && var >= 0.0).then(|| var.sqrt())
-}
-
 /// Append the least-squares cells of a fit in `D` dimensions. `translation` is the
 /// fitted displacement at the centroid, metres.
 pub fn fit_cells<const D: usize>(
@@ -452,55 +404,184 @@ pub fn fit_cells<const D: usize>(
         }
         _ => Cell::Empty,
     });
-    // An exact fit without stated precision has no meaningful covariance (a-priori
-    // factor 1 m²); leave its standard deviations empty.
-    let meaningful = !f.exact || u.precision_weighted;
-    let sd = |terms: &[(usize, f64)]| {
-        if meaningful {
-            sd_of(&f.cov_gradient, terms).map(|s| u.strain.from_strain(s))
-        } else {
-            None
-        }
-    };
-    let idx = |i: usize, j: usize| i * D + j;
-    for i in 0..D {
-        row.push(opt_num(sd(&[(idx(i, i), 1.0)])));
-    }
-    let half = |i: usize, j: usize| [(idx(i, j), 0.5), (idx(j, i), 0.5)];
-    if D == 3 {
-        row.push(opt_num(sd(&half(0, 1))));
-        row.push(opt_num(sd(&half(1, 2))));
-        row.push(opt_num(sd(&half(0, 2))));
-    } else {
-        row.push(opt_num(sd(&half(0, 1))));
-        // rotation ω = (G10 − G01)/2, in degrees
-        let rot = if meaningful {
-            sd_of(&f.cov_gradient, &[(idx(1, 0), 0.5), (idx(0, 1), -0.5)])
-        } else {
-            None
-        };
-        row.push(opt_num(rot.map(f64::to_degrees)));
-    }
     match translation {
         Some(t) => row.extend(t.map(|v| u.l(v))),
         None => row.extend(std::iter::repeat_n(Cell::Empty, D)),
     }
 }
 
+fn test_columns() -> [Column; 4] {
+    [
+        Column::new(
+            "strain_test",
+            "",
+            "test of H0 'no strain' on the strain components only: chi2(m) with the a-priori variance factor, F(m, r) with the estimated one",
+        ),
+        Column::new("strain_test_statistic", "", "test statistic"),
+        Column::new(
+            "strain_p_value",
+            "",
+            "probability of a statistic at least this large when there is no strain",
+        ),
+        Column::new(
+            "strain_significant",
+            "",
+            "true when H0 is rejected at --alpha: the strain is larger than the survey noise explains",
+        ),
+    ]
+}
+
+/// Columns of the precision block of a 2D row: standard deviations propagated to first
+/// order from the covariance of `G`, and the test of whether the strain is real. Empty
+/// cells when the points state no precision (or a fit has nothing to estimate it from).
+pub fn uncertainty_columns2(u: Units) -> Vec<Column> {
+    let s = u.strain.label();
+    let mut c = vec![
+        Column::new("sd_exx", s, "standard deviation of exx"),
+        Column::new("sd_eyy", s, "standard deviation of eyy"),
+        Column::new(
+            "sd_exy",
+            s,
+            "standard deviation of the tensor shear strain exy",
+        ),
+        Column::new("sd_rotation", "deg", "standard deviation of the rotation"),
+        Column::new("sd_evol", s, "standard deviation of the volumetric strain"),
+        Column::new("sd_e1", s, "standard deviation of e1 (empty when e1 = e2)"),
+        Column::new("sd_e2", s, "standard deviation of e2"),
+        Column::new(
+            "sd_theta1",
+            "deg",
+            "standard deviation of theta1; empty when the direction is not meaningful",
+        ),
+        Column::new(
+            "sd_max_shear_engineering",
+            s,
+            "standard deviation of the engineering maximum shear strain e1 - e2",
+        ),
+        Column::new(
+            "direction_meaningful",
+            "",
+            "false when the Mohr radius is below k = 2 of its standard deviations: the state is isotropic within the noise and theta1 means nothing",
+        ),
+    ];
+    c.extend(test_columns());
+    c
+}
+
+/// Columns of the precision block of a 3D row (see [`uncertainty_columns2`]).
+pub fn uncertainty_columns3(u: Units) -> Vec<Column> {
+    let s = u.strain.label();
+    let mut c = vec![
+        Column::new("sd_exx", s, "standard deviation of exx"),
+        Column::new("sd_eyy", s, "standard deviation of eyy"),
+        Column::new("sd_ezz", s, "standard deviation of ezz"),
+        Column::new(
+            "sd_exy",
+            s,
+            "standard deviation of the tensor shear strain exy",
+        ),
+        Column::new(
+            "sd_eyz",
+            s,
+            "standard deviation of the tensor shear strain eyz",
+        ),
+        Column::new(
+            "sd_exz",
+            s,
+            "standard deviation of the tensor shear strain exz",
+        ),
+        Column::new("sd_evol", s, "standard deviation of the volumetric strain"),
+        Column::new("sd_e1", s, "standard deviation of e1 (empty when repeated)"),
+        Column::new("sd_e2", s, "standard deviation of e2 (empty when repeated)"),
+        Column::new("sd_e3", s, "standard deviation of e3 (empty when repeated)"),
+        Column::new(
+            "sd_max_shear_engineering",
+            s,
+            "standard deviation of the engineering maximum shear strain e1 - e3",
+        ),
+        Column::new(
+            "direction_meaningful",
+            "",
+            "false when a principal gap is below k = 2 of its standard deviations: some principal directions mean nothing",
+        ),
+    ];
+    c.extend(test_columns());
+    c
+}
+
+fn test_cells(t: Option<&TestResult>, row: &mut Vec<Cell>) {
+    match t {
+        Some(t) => {
+            let name = match t.dof2 {
+                Some(r) => format!("F({},{r})", t.dof1),
+                None => format!("chi2({})", t.dof1),
+            };
+            row.extend([
+                Cell::Text(name),
+                Cell::Num(t.statistic),
+                Cell::Num(t.p_value),
+                Cell::Bool(t.significant),
+            ]);
+        }
+        None => row.extend(std::iter::repeat_n(Cell::Empty, 4)),
+    }
+}
+
+/// Append the precision cells of a 2D row.
+pub fn uncertainty_cells2(
+    un: Option<&Uncertainty2>,
+    test: Option<&TestResult>,
+    u: Units,
+    row: &mut Vec<Cell>,
+) {
+    match un {
+        Some(x) => row.extend([
+            u.s(x.sd_exx),
+            u.s(x.sd_eyy),
+            u.s(x.sd_exy),
+            deg(x.sd_rotation),
+            u.s(x.sd_volumetric),
+            x.sd_e1.map_or(Cell::Empty, |v| u.s(v)),
+            x.sd_e2.map_or(Cell::Empty, |v| u.s(v)),
+            x.sd_theta1.map_or(Cell::Empty, deg),
+            x.sd_max_shear_engineering.map_or(Cell::Empty, |v| u.s(v)),
+            Cell::Bool(!x.near_isotropic),
+        ]),
+        None => row.extend(std::iter::repeat_n(Cell::Empty, 10)),
+    }
+    test_cells(test, row);
+}
+
+/// Append the precision cells of a 3D row.
+pub fn uncertainty_cells3(
+    un: Option<&Uncertainty3>,
+    test: Option<&TestResult>,
+    u: Units,
+    row: &mut Vec<Cell>,
+) {
+    match un {
+        Some(x) => {
+            row.extend([
+                u.s(x.sd_exx),
+                u.s(x.sd_eyy),
+                u.s(x.sd_ezz),
+                u.s(x.sd_exy),
+                u.s(x.sd_eyz),
+                u.s(x.sd_exz),
+                u.s(x.sd_volumetric),
+            ]);
+            row.extend(x.sd_principal.map(|v| v.map_or(Cell::Empty, |v| u.s(v))));
+            row.push(x.sd_max_shear_engineering.map_or(Cell::Empty, |v| u.s(v)));
+            row.push(Cell::Bool(!x.gap_flagged.iter().any(|&f| f)));
+        }
+        None => row.extend(std::iter::repeat_n(Cell::Empty, 12)),
+    }
+    test_cells(test, row);
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn sd_of_linear_combination() {
-        // var(a·x + b·y) = a²var(x) + b²var(y) + 2ab cov(x, y) (propagation of variance,
-        // e.g. Ghilani & Wolf, Adjustment Computations, ch. 6).
-        let cov = DMatrix::from_row_slice(2, 2, &[4.0, 1.0, 1.0, 9.0]);
-        let got = sd_of(&cov, &[(0, 0.5), (1, 0.5)]).expect("finite");
-        let want = (0.25 * 4.0 + 0.25 * 9.0 + 2.0 * 0.25 * 1.0_f64).sqrt();
-        assert!((got - want).abs() < 1e-15);
-        assert_eq!(sd_of(&cov, &[(0, 1.0), (2, 1.0)]), None, "index outside");
-    }
 
     #[test]
     fn column_counts_match_cells() {
@@ -528,5 +609,11 @@ mod tests {
         row.clear();
         strain_cells3(&k3, u, &mut row);
         assert_eq!(row.len() + 5, columns3(u, Extra::None).len());
+        row.clear();
+        uncertainty_cells2(None, None, u, &mut row);
+        assert_eq!(row.len(), uncertainty_columns2(u).len());
+        row.clear();
+        uncertainty_cells3(None, None, u, &mut row);
+        assert_eq!(row.len(), uncertainty_columns3(u).len());
     }
 }

@@ -27,10 +27,16 @@ use kinema_core::estimate::lsq::{DistanceWeight, FitOptions, Group, fit_groups};
 use kinema_core::estimate::neighbourhood::{Centres, Selection, fit_neighbourhoods_with};
 use kinema_core::estimate::network::fit_network;
 use kinema_core::estimate::quality::{QualityThresholds, TetrahedronQuality, TriangleQuality};
-use kinema_core::estimate::{GradientEstimate, Rejected};
+use kinema_core::estimate::{FitStats, GradientEstimate, Rejected};
 use kinema_core::kinematics::{KinematicsOptions, analyze2, analyze3};
+use kinema_core::significance::{
+    DeformationParameters, TestResult, VarianceFactor, test_zero_strain,
+};
+use kinema_core::uncertainty::{
+    IsotropyTest, covariance_from_sigma, element_gradient_covariance, propagate2, propagate3,
+};
 use kinema_core::{CoreError, PointSet};
-use nalgebra::SMatrix;
+use nalgebra::{DMatrix, SMatrix};
 
 use self::columns::{Extra, Units};
 use crate::cli::CliError;
@@ -74,6 +80,53 @@ pub trait StrainRow<const D: usize> {
     ) -> Result<bool, CoreError>;
     /// Append the shape cells of the element with these vertices (metres).
     fn shape_cells(vertices: &[[f64; D]], row: &mut Vec<Cell>);
+    /// Columns of the precision block.
+    fn precision_columns(u: Units) -> Vec<Column>;
+    /// Append the precision cells for gradient `g` with covariance `prec`; returns the
+    /// test's verdict when one was made.
+    fn precision_cells(
+        g: &SMatrix<f64, D, D>,
+        prec: Option<&GradientPrecision>,
+        stats: &StatOptions,
+        u: Units,
+        row: &mut Vec<Cell>,
+    ) -> Option<bool>;
+}
+
+/// The covariance of `vec(G)` of one region (row-major, dimensionless) and how its
+/// variance factor is known (a-priori, or estimated from the fit's redundancy).
+#[derive(Debug, Clone)]
+pub struct GradientPrecision {
+    /// Covariance of `vec(G)`, at the variance factor `factor`.
+    pub cov: DMatrix<f64>,
+    /// The variance factor the covariance carries.
+    pub factor: VarianceFactor,
+}
+
+/// Options of the precision block: the isotropy screen and the test level.
+#[derive(Debug, Clone, Copy)]
+pub struct StatOptions {
+    /// When the principal direction counts as not meaningful.
+    pub isotropy: IsotropyTest,
+    /// Significance level of the strain test.
+    pub alpha: f64,
+    /// Trust the a-priori variance factor 1 (chi-square) even when a fit estimates one.
+    pub trust_apriori: bool,
+}
+
+fn test_of<const D: usize>(
+    g: &SMatrix<f64, D, D>,
+    p: &GradientPrecision,
+    alpha: f64,
+) -> Option<TestResult> {
+    let s0 = p.factor.sigma0_sq();
+    if !(s0.is_finite() && s0 > 0.0) {
+        return None;
+    }
+    let cofactor = &p.cov / s0;
+    DeformationParameters::from_gradient(g, &cofactor, p.factor)
+        .and_then(|dp| test_zero_strain(&dp, alpha))
+        .ok()
 }
 
 impl StrainRow<2> for Dim<2> {
@@ -89,6 +142,21 @@ impl StrainRow<2> for Dim<2> {
         let k = analyze2(g, opts)?;
         columns::strain_cells2(&k, u, row);
         Ok(k.adequacy.adequate)
+    }
+    fn precision_columns(u: Units) -> Vec<Column> {
+        columns::uncertainty_columns2(u)
+    }
+    fn precision_cells(
+        g: &SMatrix<f64, 2, 2>,
+        prec: Option<&GradientPrecision>,
+        stats: &StatOptions,
+        u: Units,
+        row: &mut Vec<Cell>,
+    ) -> Option<bool> {
+        let un = prec.and_then(|p| propagate2(g, &p.cov, &stats.isotropy).ok());
+        let test = prec.and_then(|p| test_of(g, p, stats.alpha));
+        columns::uncertainty_cells2(un.as_ref(), test.as_ref(), u, row);
+        test.map(|t| t.significant)
     }
     fn shape_cells(v: &[[f64; 2]], row: &mut Vec<Cell>) {
         match v {
@@ -114,6 +182,21 @@ impl StrainRow<3> for Dim<3> {
         columns::strain_cells3(&k, u, row);
         Ok(k.adequacy.adequate)
     }
+    fn precision_columns(u: Units) -> Vec<Column> {
+        columns::uncertainty_columns3(u)
+    }
+    fn precision_cells(
+        g: &SMatrix<f64, 3, 3>,
+        prec: Option<&GradientPrecision>,
+        stats: &StatOptions,
+        u: Units,
+        row: &mut Vec<Cell>,
+    ) -> Option<bool> {
+        let un = prec.and_then(|p| propagate3(g, &p.cov, &stats.isotropy).ok());
+        let test = prec.and_then(|p| test_of(g, p, stats.alpha));
+        columns::uncertainty_cells3(un.as_ref(), test.as_ref(), u, row);
+        test.map(|t| t.significant)
+    }
     fn shape_cells(v: &[[f64; 3]], row: &mut Vec<Cell>) {
         match v {
             [a, b, c, d] => columns::tetrahedron_cells(
@@ -129,6 +212,8 @@ impl StrainRow<3> for Dim<3> {
 struct Tally {
     accepted: u64,
     inadequate: u64,
+    significant: u64,
+    not_significant: u64,
     rejected: Vec<Rejected>,
     by_reason: BTreeMap<String, u64>,
 }
@@ -138,6 +223,8 @@ impl Tally {
         Self {
             accepted: 0,
             inadequate: 0,
+            significant: 0,
+            not_significant: 0,
             rejected: Vec::new(),
             by_reason: BTreeMap::new(),
         }
@@ -159,6 +246,7 @@ struct Writer<'a, const D: usize> {
     extra: Extra,
     /// Stress columns to append to every row (`--material`).
     stress: Option<&'a stress::StressSpec>,
+    stats: StatOptions,
     row: Vec<Cell>,
     io_error: Option<io::Error>,
     tally: Tally,
@@ -188,6 +276,7 @@ where
         members: &[usize],
         centroid: [f64; D],
         g: &SMatrix<f64, D, D>,
+        prec: Option<&GradientPrecision>,
         tail: impl FnOnce(&mut Vec<Cell>),
     ) {
         if self.io_error.is_some() {
@@ -201,6 +290,7 @@ where
         match <Dim<D>>::strain_cells(g, &self.opts, self.units, &mut row) {
             Ok(adequate) => {
                 tail(&mut row);
+                let verdict = <Dim<D>>::precision_cells(g, prec, &self.stats, self.units, &mut row);
                 if let Some(s) = self.stress
                     && let Err(e) = s.cells(g, &mut row)
                 {
@@ -221,6 +311,11 @@ where
                 self.tally.accepted += 1;
                 if !adequate {
                     self.tally.inadequate += 1;
+                }
+                match verdict {
+                    Some(true) => self.tally.significant += 1,
+                    Some(false) => self.tally.not_significant += 1,
+                    None => {}
                 }
                 if let Err(e) = self.sink.row(&row) {
                     self.io_error = Some(e);
@@ -255,11 +350,17 @@ where
         } else {
             Vec::new()
         };
+        let prec = match &e.fit {
+            Some(f) => self.fit_precision(f),
+            None if extra == Extra::Shape => self.element_precision(&e.members),
+            None => None,
+        };
         self.region(
             e.label.clone(),
             &e.members,
             e.centroid,
             &e.gradient,
+            prec.as_ref(),
             |row| match extra {
                 Extra::Shape => <Dim<D>>::shape_cells(&shape, row),
                 Extra::Fit => match &e.fit {
@@ -273,6 +374,52 @@ where
                 Extra::None => {}
             },
         );
+    }
+
+    /// Precision of a least-squares estimate: the estimated variance factor when the fit
+    /// has redundancy (F test), the a-priori factor 1 when it is trusted or the fit is
+    /// exact with stated precision (chi-square test); none for an exact fit without
+    /// stated precision (its covariance carries an arbitrary 1 m²).
+    fn fit_precision(&self, f: &FitStats<D>) -> Option<GradientPrecision> {
+        let weighted = self.units.precision_weighted;
+        let vf = f.variance_factor;
+        if f.exact && !weighted {
+            return None;
+        }
+        if f.exact || (self.stats.trust_apriori && weighted) {
+            let scale = vf.filter(|v| *v > 0.0).unwrap_or(1.0);
+            return Some(GradientPrecision {
+                cov: &f.cov_gradient / scale,
+                factor: VarianceFactor::Apriori { sigma0_sq: 1.0 },
+            });
+        }
+        let v = vf.filter(|v| v.is_finite() && *v > 0.0)?;
+        Some(GradientPrecision {
+            cov: f.cov_gradient.clone(),
+            factor: VarianceFactor::Estimated {
+                sigma0_sq: v,
+                redundancy: f.redundancy,
+            },
+        })
+    }
+
+    /// Precision of a constant-strain element, propagated through its shape functions
+    /// from the stated precision of its vertices (a-priori factor 1); none when a vertex
+    /// states none.
+    fn element_precision(&self, members: &[usize]) -> Option<GradientPrecision> {
+        let pts = self.points.points();
+        let mut xs = Vec::with_capacity(members.len());
+        let mut covs = Vec::with_capacity(members.len());
+        for &i in members {
+            let p = pts.get(i)?;
+            xs.push(p.x);
+            covs.push(covariance_from_sigma(&p.sigma?).ok()?);
+        }
+        let cov = element_gradient_covariance(&xs, &covs).ok()?;
+        Some(GradientPrecision {
+            cov,
+            factor: VarianceFactor::Apriori { sigma0_sq: 1.0 },
+        })
     }
 
     /// Write the rejected section and the footer; hand back the first I/O error.
@@ -290,6 +437,14 @@ where
             self.sink.row(&cells)?;
         }
         let mut all_notes = notes;
+        let tested = self.tally.significant + self.tally.not_significant;
+        if tested > 0 {
+            all_notes.push(format!(
+                "{} of {} tested regions show strain beyond the survey noise at alpha = {} \
+                 (strain_significant); the others are within the noise.",
+                self.tally.significant, tested, self.stats.alpha
+            ));
+        }
         if self.tally.inadequate > 0 {
             all_notes.push(format!(
                 "{} of {} regions: small-strain theory is not adequate at strain resolution {} \
@@ -348,10 +503,16 @@ pub fn run(request: &Request, sink: &mut dyn RowSink, target: &str) -> Result<()
         strain: request.strain_unit,
         precision_weighted: request.params.use_precision,
     };
+    let stats = StatOptions {
+        isotropy: IsotropyTest::default(),
+        alpha: request.params.alpha,
+        trust_apriori: request.params.trust_apriori,
+    };
     let ctx = Context {
         request,
         units,
         opts,
+        stats,
         target,
     };
     match (&request.points, request.method) {
@@ -412,6 +573,7 @@ struct Context<'a> {
     request: &'a Request,
     units: Units,
     opts: KinematicsOptions,
+    stats: StatOptions,
     target: &'a str,
 }
 
@@ -437,6 +599,7 @@ impl Context<'_> {
         let method = self.request.method;
         let extra = extra_for(method);
         let mut columns = <Dim<D>>::columns(self.units, extra);
+        columns.extend(<Dim<D>>::precision_columns(self.units));
         let stress = self.request.stress.as_ref();
         if let Some(s) = stress {
             columns.extend(s.columns());
@@ -456,6 +619,7 @@ impl Context<'_> {
             opts: self.opts,
             extra,
             stress,
+            stats: self.stats,
             row: Vec::new(),
             io_error: None,
             tally: Tally::new(),
@@ -616,11 +780,13 @@ fn stream_triangles(
         ElementOutcome::Accepted(t) => {
             let members = t.vertices.map(|v| v as usize);
             let q = t.quality;
+            let prec = w.element_precision(&members);
             w.region(
                 triangle_label(t.index),
                 &members,
                 t.centroid,
                 &t.gradient,
+                prec.as_ref(),
                 |row| columns::triangle_cells(&q, row),
             );
         }
