@@ -387,7 +387,13 @@ where
             return None;
         }
         if f.exact || (self.stats.trust_apriori && weighted) {
-            let scale = vf.filter(|v| *v > 0.0).unwrap_or(1.0);
+            // The covariance carries σ̂₀² when the fit has redundancy: divide it out to
+            // get the a-priori one. A perfect fit (σ̂₀² = 0) has lost it: no precision.
+            let scale = if f.exact {
+                1.0
+            } else {
+                vf.filter(|v| v.is_finite() && *v > 0.0)?
+            };
             return Some(GradientPrecision {
                 cov: &f.cov_gradient / scale,
                 factor: VarianceFactor::Apriori { sigma0_sq: 1.0 },
