@@ -16,6 +16,7 @@ pub struct CsvSink<W: Write> {
     schema: Schema,
     tables_written: usize,
     field: Vec<String>,
+    line: Vec<u8>,
 }
 
 impl<W: Write> CsvSink<W> {
@@ -26,6 +27,7 @@ impl<W: Write> CsvSink<W> {
             schema: Schema::default(),
             tables_written: 0,
             field: Vec::new(),
+            line: Vec::new(),
         }
     }
 
@@ -36,13 +38,20 @@ impl<W: Write> CsvSink<W> {
 
     /// Write one record: fields joined by commas, quoted where RFC 4180 needs it.
     fn record<S: AsRef<str>>(&mut self, fields: &[S]) -> io::Result<()> {
+        // Assemble the line first and hand it over in one call: many small writes
+        // into the buffered writer cost more than the formatting.
+        let mut line = std::mem::take(&mut self.line);
+        line.clear();
         for (i, f) in fields.iter().enumerate() {
             if i > 0 {
-                self.out.write_all(b",")?;
+                line.push(b',');
             }
-            write_field(&mut self.out, f.as_ref())?;
+            write_field(&mut line, f.as_ref())?;
         }
-        self.out.write_all(b"\r\n")
+        line.extend_from_slice(b"\r\n");
+        let r = self.out.write_all(&line);
+        self.line = line;
+        r
     }
 
     fn start_table(&mut self, index: usize) -> io::Result<()> {
@@ -111,13 +120,36 @@ impl<W: Write> RowSink for CsvSink<W> {
 
     fn row(&mut self, cells: &[Cell]) -> io::Result<()> {
         self.schema.check_row(cells)?;
-        self.field.resize(cells.len(), String::new());
-        for (c, buf) in cells.iter().zip(self.field.iter_mut()) {
-            cell_text(c, buf);
+        // Numbers, flags and empty cells never need quoting: write them straight into
+        // the line; only text goes through the quoting check.
+        let mut line = std::mem::take(&mut self.line);
+        let mut text = std::mem::take(&mut self.field);
+        text.resize(1, String::new());
+        line.clear();
+        let mut ryu_buf = ryu::Buffer::new();
+        for (i, c) in cells.iter().enumerate() {
+            if i > 0 {
+                line.push(b',');
+            }
+            match c {
+                Cell::Num(x) => {
+                    if let Some(x) = finite(*x) {
+                        line.extend_from_slice(ryu_buf.format_finite(x).as_bytes());
+                    }
+                }
+                Cell::Bool(b) => line.extend_from_slice(if *b { b"true" } else { b"false" }),
+                Cell::Empty => {}
+                Cell::Text(t) => write_field(&mut line, t)?,
+                other => {
+                    cell_text(other, &mut text[0]);
+                    write_field(&mut line, &text[0])?;
+                }
+            }
         }
-        let fields = std::mem::take(&mut self.field);
-        let r = self.record(&fields);
-        self.field = fields;
+        line.extend_from_slice(b"\r\n");
+        let r = self.out.write_all(&line);
+        self.line = line;
+        self.field = text;
         r
     }
 

@@ -9,7 +9,7 @@
 
 use kinema_core::estimate::FitStats;
 use kinema_core::estimate::quality::{TetrahedronQuality, TriangleQuality};
-use kinema_core::kinematics::{Adequacy, Degeneracy3, Kinematics2, Kinematics3};
+use kinema_core::kinematics::{Adequacy, AdequacyReason, Degeneracy3, Kinematics2, Kinematics3};
 use kinema_core::significance::TestResult;
 use kinema_core::uncertainty::{Uncertainty2, Uncertainty3};
 
@@ -126,7 +126,17 @@ pub fn columns2(u: Units, extra: Extra) -> Vec<Column> {
         Column::new(
             "adequacy_note",
             "",
-            "why small-strain theory is not adequate, with the numbers",
+            "why small-strain theory is not adequate: rotation too large and/or gradient too large",
+        ),
+        Column::new(
+            "rotation_spurious_strain",
+            s,
+            "strain the small-strain tensor wrongly shows for the rigid rotation alone, |rotation|^2/2",
+        ),
+        Column::new(
+            "gradient_quadratic_strain",
+            s,
+            "quadratic (finite-strain) part of the stretch, max (lambda_i - 1)^2/2, that small-strain theory leaves out",
         ),
     ];
     c.extend(extra_columns(u, extra, 2));
@@ -211,7 +221,17 @@ pub fn columns3(u: Units, extra: Extra) -> Vec<Column> {
         Column::new(
             "adequacy_note",
             "",
-            "why small-strain theory is not adequate, with the numbers",
+            "why small-strain theory is not adequate: rotation too large and/or gradient too large",
+        ),
+        Column::new(
+            "rotation_spurious_strain",
+            s,
+            "strain the small-strain tensor wrongly shows for the rigid rotation alone, |rotation|^2/2",
+        ),
+        Column::new(
+            "gradient_quadratic_strain",
+            s,
+            "quadratic (finite-strain) part of the stretch, max (lambda_i - 1)^2/2, that small-strain theory leaves out",
         ),
     ];
     c.extend(extra_columns(u, extra, 3));
@@ -288,14 +308,26 @@ fn extra_columns(u: Units, extra: Extra, dim: usize) -> Vec<Column> {
     }
 }
 
-fn adequacy_cells(a: &Adequacy, row: &mut Vec<Cell>) {
+/// The verdict, a short reason (the numbers are in their own columns, so that the text
+/// is cheap to write for millions of rows), and the two quadratic terms.
+fn adequacy_cells(a: &Adequacy, u: Units, row: &mut Vec<Cell>) {
     row.push(Cell::Bool(a.adequate));
-    if a.reasons.is_empty() {
-        row.push(Cell::Empty);
-    } else {
-        let text: Vec<String> = a.reasons.iter().map(ToString::to_string).collect();
-        row.push(Cell::Text(text.join("; ")));
+    let mut rotation = false;
+    let mut gradient = false;
+    for r in &a.reasons {
+        match r {
+            AdequacyReason::RotationTooLarge { .. } => rotation = true,
+            AdequacyReason::GradientTooLarge { .. } => gradient = true,
+        }
     }
+    row.push(match (rotation, gradient) {
+        (false, false) => Cell::Empty,
+        (true, false) => Cell::Text("rotation too large".to_owned()),
+        (false, true) => Cell::Text("gradient too large".to_owned()),
+        (true, true) => Cell::Text("rotation too large; gradient too large".to_owned()),
+    });
+    row.push(u.s(a.rotation_spurious_strain));
+    row.push(u.s(a.gradient_quadratic_strain));
 }
 
 /// Append the strain cells of a 2D result (after label, members and centroid).
@@ -322,7 +354,7 @@ pub fn strain_cells2(k: &Kinematics2, u: Units, row: &mut Vec<Cell>) {
         u.s(k.finite.green_lagrange[0][1]),
         Cell::Num(k.finite.jacobian),
     ]);
-    adequacy_cells(&k.adequacy, row);
+    adequacy_cells(&k.adequacy, u, row);
 }
 
 fn direction_cells(n: Option<[f64; 3]>, row: &mut Vec<Cell>) {
@@ -368,7 +400,7 @@ pub fn strain_cells3(k: &Kinematics3, u: Units, row: &mut Vec<Cell>) {
         u.s(k.octahedral.engineering_shear),
         Cell::Num(k.finite.jacobian),
     ]);
-    adequacy_cells(&k.adequacy, row);
+    adequacy_cells(&k.adequacy, u, row);
 }
 
 /// Append the shape cells of a triangle.
