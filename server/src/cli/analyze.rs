@@ -12,10 +12,12 @@ use std::path::{Path, PathBuf};
 use clap::{Args, ValueEnum};
 
 use super::CliError;
+use crate::input::geodetic::{EnuInfo, GeodeticOptions};
 use crate::input::{self, ElementRow, GroupRows, Points, ReadOptions};
 use crate::output::{self, Cell, Header, OutputFormat};
 use crate::pipeline::stress::{StressFlags, StressSpec, StressState};
 use crate::units::{LengthUnit, StrainUnit};
+use kinema_core::geodesy::Geodetic;
 
 /// Default `--k`.
 pub const DEFAULT_K: usize = 12;
@@ -43,6 +45,15 @@ Input (POINTS_FILE, CSV with a header or JSON; chosen by content):
   --length-unit), \"points\": [{\"id\": \"T1\" or 1, \"x\": .., \"y\": .., \"ux\": ..,
   \"uy\": .., [\"z\", \"uz\", \"sigma_x\", ...]}]}.
   Point IDs: 1-64 characters of A-Z a-z 0-9 . _ -
+  id,lat_ref,lon_ref,h_ref,lat_cur,lon_cur,h_cur[,sigma_e,sigma_n,sigma_u]
+                                         GNSS points, WGS84 (chosen by the lat_ref
+                                         column): decimal degrees, ellipsoidal heights in
+                                         the declared unit; sigma_* of the displacement
+                                         along local East, North, Up. Converted to ENU
+                                         (x = east, y = north, z = up) about --enu-origin
+                                         or the mean of the reference positions; 3D unless
+                                         --horizontal. 2D ENU output adds azimuth1_deg
+                                         (clockwise from north) beside theta1_deg.
 
 --elements FILE: CSV element_id,v0,v1,v2[,v3] or JSON {\"elements\": [{\"id\", \"vertices\"}]}
 --groups FILE:   CSV group,point_id (one row per member) or JSON
@@ -285,6 +296,22 @@ pub struct AnalyzeArgs {
     /// --youngs-modulus-gpa).
     #[arg(long, value_name = "NU", allow_negative_numbers = true)]
     pub poisson_ratio: Option<f64>,
+
+    /// Origin of the East-North-Up frame for a geodetic (GNSS) points file: latitude and
+    /// longitude in degrees, ellipsoidal height in the declared length unit
+    /// [default: the mean of the reference positions].
+    #[arg(
+        long,
+        value_name = "LAT,LON,H",
+        value_delimiter = ',',
+        allow_negative_numbers = true
+    )]
+    pub enu_origin: Option<Vec<f64>>,
+
+    /// Geodetic (GNSS) points file: keep East and North only, a 2D horizontal network
+    /// [default: 3D, East, North and Up].
+    #[arg(long)]
+    pub horizontal: bool,
 }
 
 impl AnalyzeArgs {
@@ -349,6 +376,9 @@ pub struct Request {
     pub stress: Option<StressSpec>,
     /// The output header: input, method, units and the parameters that apply.
     pub header: Header,
+    /// The ENU frame when the points came from a geodetic (GNSS) file; 2D ENU rows
+    /// then carry an `azimuth1` column.
+    pub enu: Option<EnuInfo>,
 }
 
 fn usage(msg: impl Into<String>) -> CliError {
@@ -474,13 +504,21 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
              pipeline::rosette::prepare",
         ));
     }
-    let points = input::read_points(
-        &a.points_file,
-        &ReadOptions {
-            length_unit: a.length_unit,
-            progress: !a.quiet,
-        },
-    )?;
+    let read = ReadOptions {
+        length_unit: a.length_unit,
+        progress: !a.quiet,
+    };
+    let geodetic = input::geodetic::read_geodetic(&a.points_file, &read, &geodetic_options(a)?)?;
+    let (points, enu) = match geodetic {
+        Some(g) => (g.points, Some(g.enu)),
+        None if a.enu_origin.is_some() || a.horizontal => {
+            return Err(usage(
+                "--enu-origin and --horizontal apply to a geodetic points file \
+                 (id,lat_ref,lon_ref,h_ref,lat_cur,lon_cur,h_cur)",
+            ));
+        }
+        None => (input::read_points(&a.points_file, &read)?, None),
+    };
     let dim = points.dimension();
     let method = resolve_method(a, dim)?;
     if a.use_precision && !points.all_have_sigma() {
@@ -534,6 +572,9 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
     if let Some(s) = &stress {
         header.parameters.extend(s.parameters());
     }
+    if let Some(e) = &enu {
+        header.parameters.extend(e.parameters(unit));
+    }
     Ok(Request {
         points,
         method,
@@ -544,6 +585,31 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
         strain_unit: a.strain_unit,
         stress,
         header,
+        enu,
+    })
+}
+
+/// `--enu-origin` and `--horizontal`, checked: three finite numbers, latitude in
+/// [−90, 90] (the core's `LatitudeOutOfRange`, as a usage error).
+fn geodetic_options(a: &AnalyzeArgs) -> Result<GeodeticOptions, CliError> {
+    let origin = match a.enu_origin.as_deref() {
+        None => None,
+        Some(&[lat, lon, h]) => {
+            Geodetic::from_degrees(lat, lon, a.length_unit.to_metres(h))
+                .validate()
+                .map_err(|e| usage(format!("--enu-origin {lat},{lon},{h}: {e}")))?;
+            Some([lat, lon, h])
+        }
+        Some(v) => {
+            return Err(usage(format!(
+                "--enu-origin takes LAT,LON,H (three numbers), got {} values",
+                v.len()
+            )));
+        }
+    };
+    Ok(GeodeticOptions {
+        origin,
+        horizontal: a.horizontal,
     })
 }
 

@@ -200,6 +200,22 @@ pub enum InputError {
         #[source]
         source: CoreError,
     },
+    /// A value the core rejects, at a known position: e.g. a latitude outside
+    /// [−90°, 90°] (`CoreError::LatitudeOutOfRange`).
+    #[error("{path}:{line}:{column} (column {name}): {source}")]
+    CoreAt {
+        /// File as given by the user.
+        path: String,
+        /// Line of the row.
+        line: u64,
+        /// Field number.
+        column: usize,
+        /// Column name.
+        name: &'static str,
+        /// The core's error, naming the value (boxed to keep the enum small).
+        #[source]
+        source: Box<CoreError>,
+    },
 }
 
 impl InputError {

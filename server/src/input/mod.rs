@@ -12,6 +12,7 @@
 mod csv_points;
 mod elements;
 mod error;
+pub mod geodetic;
 mod groups;
 mod json_doc;
 mod json_points;

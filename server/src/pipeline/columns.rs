@@ -403,6 +403,39 @@ pub fn strain_cells3(k: &Kinematics3, u: Units, row: &mut Vec<Cell>) {
     adequacy_cells(&k.adequacy, u, row);
 }
 
+/// Column `azimuth1` of 2D runs in an East-North-Up frame (x = east, y = north): the
+/// direction of e1 as an azimuth, clockwise from north.
+pub const AZIMUTH1: Column = Column::new(
+    "azimuth1",
+    "deg",
+    "direction of e1 as an azimuth, clockwise from north, in [0, 180) (an axis); empty when isotropic",
+);
+
+/// Insert [`AZIMUTH1`] right after the `theta1` column; returns the index of `theta1`,
+/// or `None` (nothing inserted) when there is none (3D sections).
+pub fn insert_azimuth_column(columns: &mut Vec<Column>) -> Option<usize> {
+    let at = columns.iter().position(|c| c.name == "theta1")?;
+    columns.insert(at + 1, AZIMUTH1);
+    Some(at)
+}
+
+/// Insert the `azimuth1` cell right after the `theta1` cell at `theta1_at`, from the
+/// value written there (degrees counter-clockwise from east, in (−90, 90]) by the
+/// core's [`azimuth_from_angle`](kinema_core::geodesy::azimuth_from_angle), reduced
+/// modulo 180° because a principal direction is an axis. Empty when `theta1` is.
+pub fn insert_azimuth_cell(row: &mut Vec<Cell>, theta1_at: usize) {
+    let cell = match row.get(theta1_at) {
+        Some(Cell::Num(theta_deg)) => {
+            let az = kinema_core::geodesy::azimuth_from_angle(theta_deg.to_radians())
+                .rem_euclid(std::f64::consts::PI)
+                .to_degrees();
+            Cell::Num(if az >= 180.0 { 0.0 } else { az })
+        }
+        _ => Cell::Empty,
+    };
+    row.insert((theta1_at + 1).min(row.len()), cell);
+}
+
 /// Append the shape cells of a triangle.
 pub fn triangle_cells(q: &TriangleQuality, row: &mut Vec<Cell>) {
     row.extend([deg(q.min_angle_rad), Cell::Num(q.aspect_ratio)]);

@@ -250,6 +250,8 @@ struct Writer<'a, const D: usize> {
     row: Vec<Cell>,
     io_error: Option<io::Error>,
     tally: Tally,
+    /// Index of `theta1` when an `azimuth1` cell follows it (2D ENU runs).
+    azimuth_at: Option<usize>,
 }
 
 impl<'a, const D: usize> Writer<'a, D>
@@ -289,6 +291,9 @@ where
         row.extend(centroid.map(|c| Cell::Num(self.units.length.from_metres(c))));
         match <Dim<D>>::strain_cells(g, &self.opts, self.units, &mut row) {
             Ok(adequate) => {
+                if let Some(i) = self.azimuth_at {
+                    columns::insert_azimuth_cell(&mut row, i);
+                }
                 tail(&mut row);
                 let verdict = <Dim<D>>::precision_cells(g, prec, &self.stats, self.units, &mut row);
                 if let Some(s) = self.stress
@@ -610,6 +615,10 @@ impl Context<'_> {
         if let Some(s) = stress {
             columns.extend(s.columns());
         }
+        let azimuth_at = match self.request.enu {
+            Some(_) => columns::insert_azimuth_column(&mut columns),
+            None => None,
+        };
         let main = Section {
             name: section_name(method),
             columns,
@@ -629,6 +638,7 @@ impl Context<'_> {
             row: Vec::new(),
             io_error: None,
             tally: Tally::new(),
+            azimuth_at,
         };
         let mut notes = body(&mut w)?;
         if let Some(s) = stress {
