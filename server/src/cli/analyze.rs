@@ -74,6 +74,15 @@ Input (POINTS_FILE, CSV with a header or JSON; chosen by content):
   concrete-c90-105 (EN 1992-1-1 classes). Stress assumes a homogeneous, isotropic,
   linear elastic material and is not a structural assessment.
 
+--series (with --method elements or groups and --baseline LABEL): POINTS_FILE holds
+  survey epochs: CSV epoch,time,id,x,y[,z][,sigma_x,sigma_y[,sigma_z]][,temperature_c],
+  one row per point per epoch, time in RFC 3339 (2026-03-01T10:00:00Z; an offset is
+  converted to UTC), one time and one temperature (°C) per epoch, epochs in time
+  order; or JSON {\"length_unit\", \"epochs\": [{\"label\", \"time\", \"temperature_c\",
+  \"points\": [{\"id\", \"x\", \"y\", ...}]}]}. Sections cumulative, increments, rates
+  (per day and per Julian year), excluded and rejected. --thermal-alpha PER_K or
+  --material ID removes alpha*(T - T_baseline) from the normal strains.
+
 Output: per-region rows and a `rejected` section (label, members, reason). Every
 column carries its unit (CSV/JSON names end in it, e.g. exx_microstrain, theta1_deg);
 exy is tensor shear strain, gxy = 2*exy engineering shear strain; angles in degrees
@@ -312,6 +321,21 @@ pub struct AnalyzeArgs {
     /// [default: 3D, East, North and Up].
     #[arg(long)]
     pub horizontal: bool,
+
+    /// Time series: POINTS_FILE is an epochs file (see below); follow the strain of
+    /// --elements or --groups through its epochs relative to --baseline.
+    #[arg(long)]
+    pub series: bool,
+
+    /// Label of the baseline epoch of --series (required with --series).
+    #[arg(long, value_name = "LABEL")]
+    pub baseline: Option<String>,
+
+    /// Temperature compensation of --series: remove the free thermal strain
+    /// alpha*(T - T_baseline) with this coefficient of linear expansion, 1/K
+    /// [default: unset; --material gives its own alpha instead].
+    #[arg(long, value_name = "PER_K", allow_negative_numbers = true)]
+    pub thermal_alpha: Option<f64>,
 }
 
 impl AnalyzeArgs {
@@ -746,6 +770,17 @@ pub fn run(a: &AnalyzeArgs) -> Result<(), CliError> {
         .output
         .as_deref()
         .map_or_else(|| "stdout".to_owned(), |p| p.display().to_string());
+    if a.series {
+        check_flags(a)?;
+        let method = resolve_method(a, 2)?;
+        let request = crate::pipeline::series::prepare(a, method)?;
+        let (out, pending) = open_output(a.output.as_deref())?;
+        let mut sink = output::sink(a.format, out);
+        crate::pipeline::series::run(&request, sink.as_mut(), &target)?;
+        drop(sink);
+        return pending.map_or(Ok(()), PendingFile::commit);
+    }
+    crate::pipeline::series::check_series_flags(a)?;
     if a.method == Some(Method::Rosette) {
         check_flags(a)?;
         resolve_method(a, 2)?;

@@ -216,6 +216,21 @@ pub enum InputError {
         #[source]
         source: Box<CoreError>,
     },
+    /// A field holds a value of the right kind that is not acceptable here: a
+    /// malformed time, or a value that disagrees with another row of the same epoch.
+    #[error("{path}:{line}:{column} (column {name}): {message}")]
+    BadField {
+        /// File as given by the user.
+        path: String,
+        /// Line of the row.
+        line: u64,
+        /// Field number.
+        column: usize,
+        /// Column name.
+        name: String,
+        /// What is wrong, naming the value.
+        message: String,
+    },
 }
 
 impl InputError {

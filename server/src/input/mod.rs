@@ -11,6 +11,7 @@
 
 mod csv_points;
 mod elements;
+mod epochs;
 mod error;
 pub mod geodetic;
 mod groups;
@@ -24,6 +25,7 @@ use std::path::Path;
 use kinema_core::{Point, PointSet};
 
 pub use elements::{ElementRow, read_elements};
+pub use epochs::{EpochSeries, format_rfc3339, parse_rfc3339, read_epochs};
 pub use error::InputError;
 pub use groups::{GroupRows, read_groups};
 pub use rosette::{RosetteRows, read_rosettes};

@@ -13,6 +13,7 @@
 pub mod columns;
 pub mod lattice;
 pub mod rosette;
+pub mod series;
 pub mod stress;
 
 use std::collections::BTreeMap;
