@@ -128,9 +128,17 @@ pub const COV_MIN_RATIO: f64 = 1e-12;
 /// Iteration cap of the bounded symmetric eigen-solver used on point covariances.
 const COV_EIGEN_MAX_ITER: usize = 200;
 
-/// Check one point's full covariance: finite, symmetric (relative 1e-9), positive
-/// definite (`λ_min > COV_MIN_RATIO · λ_max`).
-fn check_point_cov<const D: usize>(id: &str, c: &[[f64; D]; D]) -> Result<()> {
+/// Check one point's full covariance of the displacement (m², row-major): finite,
+/// symmetric (relative tolerance
+/// [`SYM_REL`](crate::uncertainty::covariance::SYM_REL) = 1e-9) and positive definite
+/// (`λ_min > COV_MIN_RATIO · λ_max`). [`PointSet::new`] runs it on every `cov`; readers
+/// call it to report a bad row where they read it.
+///
+/// # Errors
+/// `NonFinite { id, field: "cov" }`; `InvalidCovariance` (not symmetric, or a negative
+/// eigenvalue) and `SingularCovariance` (singular to working precision), both with
+/// `name` = ``point `ID` cov``; `EigenNoConvergence`.
+pub fn validate_cov<const D: usize>(id: &str, c: &[[f64; D]; D]) -> Result<()> {
     if c.iter().flatten().any(|v| !v.is_finite()) {
         return Err(CoreError::NonFinite {
             id: id.to_owned(),
@@ -235,7 +243,7 @@ impl<const D: usize> PointSet<D> {
                         ),
                     });
                 }
-                check_point_cov(&p.id, c)?;
+                validate_cov(&p.id, c)?;
             }
             if !seen.insert(p.id.as_str()) {
                 return Err(CoreError::DuplicatePoint { id: p.id.clone() });
@@ -427,7 +435,10 @@ mod tests {
         assert_eq!(back, p);
         let c = Point::new("C", [1.0, 2.0], [0.1, 0.2]).with_cov([[4e-6, 1e-6], [1e-6, 2e-6]]);
         let s = serde_json::to_string(&c).expect("serialise");
-        assert_eq!(serde_json::from_str::<Point<2>>(&s).expect("deserialise"), c);
+        assert_eq!(
+            serde_json::from_str::<Point<2>>(&s).expect("deserialise"),
+            c
+        );
         let ragged = r#"{"id":"A","x":[1,2],"u":[0,0],"cov":[[1,0],[0]]}"#;
         assert!(serde_json::from_str::<Point<2>>(ragged).is_err());
         let short = r#"{"id":"A","x":[1.0,2.0],"u":[0.0,0.0,0.0]}"#;

@@ -73,11 +73,7 @@ fn random_cov<const D: usize>(rng: &mut Rng) -> [[f64; D]; D] {
     for i in 0..D {
         let mut norm = 0.0;
         for j in 0..=i {
-            l[i][j] = if i == j {
-                1.0
-            } else {
-                rng.range(-1.0, 1.0)
-            };
+            l[i][j] = if i == j { 1.0 } else { rng.range(-1.0, 1.0) };
             norm += l[i][j] * l[i][j];
         }
         for j in 0..=i {
@@ -97,7 +93,10 @@ fn random_cov<const D: usize>(rng: &mut Rng) -> [[f64; D]; D] {
 /// Lower Cholesky factor of a small SPD matrix.
 fn cholesky<const D: usize>(c: &[[f64; D]; D]) -> [[f64; D]; D] {
     let m = DMatrix::<f64>::from_fn(D, D, |i, j| c[i][j]);
-    let l = m.cholesky().expect("test covariance is positive definite").l();
+    let l = m
+        .cholesky()
+        .expect("test covariance is positive definite")
+        .l();
     let mut out = [[0.0; D]; D];
     for i in 0..D {
         for j in 0..D {
@@ -254,14 +253,20 @@ fn diagonal_equals_sigma<const D: usize>(seed: u64, dw: DistanceWeight) {
     assert!(close(va, vb, tol, 0.0), "σ̂₀² {va} vs {vb}");
     for (ra, rb) in fa.residuals.iter().zip(&fb.residuals) {
         for k in 0..D {
-            assert!(close(ra[k], rb[k], 1e-9, 1e-16), "residual {ra:?} vs {rb:?}");
+            assert!(
+                close(ra[k], rb[k], 1e-9, 1e-16),
+                "residual {ra:?} vs {rb:?}"
+            );
         }
     }
     let scale = fa.cov_gradient.amax();
     for r in 0..D * D {
         for c in 0..D * D {
             let (x, y) = (fa.cov_gradient[(r, c)], fb.cov_gradient[(r, c)]);
-            assert!(close(x, y, tol, tol * scale), "cov[{r}][{c}] {x:e} vs {y:e}");
+            assert!(
+                close(x, y, tol, tol * scale),
+                "cov[{r}][{c}] {x:e} vs {y:e}"
+            );
         }
     }
 }
@@ -476,7 +481,10 @@ fn bad_covariances_are_typed_errors_naming_the_point() {
             .with_sigma([1e-3, 1e-3])
             .with_cov([[1e-6, 0.0], [0.0, 1e-6]]),
     ) {
-        Err(CoreError::InvalidParameter { name: "cov", reason }) => {
+        Err(CoreError::InvalidParameter {
+            name: "cov",
+            reason,
+        }) => {
             assert!(reason.contains("Q7"), "{reason}")
         }
         other => panic!("expected InvalidParameter(cov), got {other:?}"),

@@ -199,7 +199,10 @@ fn check<const D: usize>(seed: u64, n: usize, gauss: Option<f64>) {
         &opts,
     )
     .expect("fit");
-    assert_eq!(est.members, members, "every point has a non-negligible weight");
+    assert_eq!(
+        est.members, members,
+        "every point has a non-negligible weight"
+    );
     let fit = est.fit.as_ref().expect("stats");
     let input = json!({
         "x": set.points().iter().map(|p| p.x.to_vec()).collect::<Vec<_>>(),

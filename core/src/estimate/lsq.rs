@@ -1078,15 +1078,13 @@ fn precision_matrix<const D: usize>(
         });
     };
     let dm = DMatrix::<f64>::from_fn(D, D, |i, j| c[(i, j)]);
-    let chol = dm
-        .cholesky()
-        .ok_or_else(|| CoreError::SingularCovariance {
-            name: format!("point `{}` cov", p.id),
-            reason: format!(
-                "{}: no Cholesky decomposition (not positive definite)",
-                context(kind, label)
-            ),
-        })?;
+    let chol = dm.cholesky().ok_or_else(|| CoreError::SingularCovariance {
+        name: format!("point `{}` cov", p.id),
+        reason: format!(
+            "{}: no Cholesky decomposition (not positive definite)",
+            context(kind, label)
+        ),
+    })?;
     let inv = chol.inverse();
     let mut out = [[0.0; D]; D];
     for i in 0..D {
