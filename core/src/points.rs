@@ -2,9 +2,11 @@
 
 use std::collections::HashSet;
 
+use nalgebra::SMatrix;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{CoreError, Result};
+use crate::uncertainty::covariance::check_covariance_s;
 
 /// Longest allowed point identifier, in characters.
 pub const MAX_ID_LEN: usize = 64;
@@ -16,6 +18,11 @@ pub const MAX_ID_LEN: usize = 64;
 /// - `sigma`: optional stated standard deviation of each displacement component,
 ///   in metres. Used for per-point weights (`w = 1/σ²`) by the least-squares
 ///   estimators; `None` means unit weight.
+/// - `cov`: optional full covariance of the displacement `u` (m², row-major,
+///   `cov[i][j] = cov(u_i, u_j)`), for correlated components (for example a displacement
+///   formed from two epochs, or GNSS precision rotated into the local frame). It
+///   replaces `sigma`: a point states one of the two or neither, never both.
+///   The least-squares estimators weight such a point by `C⁻¹` ([`crate::estimate::lsq`]).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Point<const D: usize> {
     /// Client's point identifier (1–64 chars of `A-Za-z0-9._-`).
@@ -29,6 +36,10 @@ pub struct Point<const D: usize> {
     /// Standard deviation of each displacement component, metres.
     #[serde(default, with = "serde_opt_arrays")]
     pub sigma: Option<[f64; D]>,
+    /// Covariance of the displacement, m², row-major; symmetric positive definite.
+    /// Mutually exclusive with `sigma`.
+    #[serde(default, with = "serde_opt_matrix")]
+    pub cov: Option<[[f64; D]; D]>,
 }
 
 impl<const D: usize> Point<D> {
@@ -39,6 +50,7 @@ impl<const D: usize> Point<D> {
             x,
             u,
             sigma: None,
+            cov: None,
         }
     }
 
@@ -46,6 +58,35 @@ impl<const D: usize> Point<D> {
     pub fn with_sigma(mut self, sigma: [f64; D]) -> Self {
         self.sigma = Some(sigma);
         self
+    }
+
+    /// The same point with a full covariance of its displacement (m², row-major,
+    /// `cov[i][j] = cov(u_i, u_j)`). A point with both `sigma` and `cov` is rejected by
+    /// [`PointSet::new`].
+    pub fn with_cov(mut self, cov: [[f64; D]; D]) -> Self {
+        self.cov = Some(cov);
+        self
+    }
+
+    /// The covariance of the displacement (m²) from whichever precision the point
+    /// states: the full `cov`, or `diag(σ_1², …, σ_D²)` from `sigma`; `None` when it
+    /// states neither. When both are set (which [`PointSet::new`] rejects), `cov` wins.
+    pub fn covariance(&self) -> Option<SMatrix<f64, D, D>> {
+        if let Some(c) = &self.cov {
+            return Some(SMatrix::<f64, D, D>::from_fn(|i, j| c[i][j]));
+        }
+        self.sigma.map(|s| {
+            let mut c = SMatrix::<f64, D, D>::zeros();
+            for k in 0..D {
+                c[(k, k)] = s[k] * s[k];
+            }
+            c
+        })
+    }
+
+    /// True when the point states a precision (`sigma` or `cov`).
+    pub fn has_precision(&self) -> bool {
+        self.sigma.is_some() || self.cov.is_some()
     }
 }
 
@@ -79,8 +120,57 @@ const AXES: [&str; 3] = ["x", "y", "z"];
 const DISP: [&str; 3] = ["ux", "uy", "uz"];
 const SIG: [&str; 3] = ["sigma_x", "sigma_y", "sigma_z"];
 
+/// Smallest accepted ratio `λ_min/λ_max` of a point's covariance: below it the
+/// covariance counts as singular (not positive definite to working precision).
+/// Common practice for "numerically singular", not a published constant.
+pub const COV_MIN_RATIO: f64 = 1e-12;
+
+/// Iteration cap of the bounded symmetric eigen-solver used on point covariances.
+const COV_EIGEN_MAX_ITER: usize = 200;
+
+/// Check one point's full covariance of the displacement (m², row-major): finite,
+/// symmetric (relative tolerance
+/// [`SYM_REL`](crate::uncertainty::covariance::SYM_REL) = 1e-9) and positive definite
+/// (`λ_min > COV_MIN_RATIO · λ_max`). [`PointSet::new`] runs it on every `cov`; readers
+/// call it to report a bad row where they read it.
+///
+/// # Errors
+/// `NonFinite { id, field: "cov" }`; `InvalidCovariance` (not symmetric, or a negative
+/// eigenvalue) and `SingularCovariance` (singular to working precision), both with
+/// `name` = ``point `ID` cov``; `EigenNoConvergence`.
+pub fn validate_cov<const D: usize>(id: &str, c: &[[f64; D]; D]) -> Result<()> {
+    if c.iter().flatten().any(|v| !v.is_finite()) {
+        return Err(CoreError::NonFinite {
+            id: id.to_owned(),
+            field: "cov",
+        });
+    }
+    let m = SMatrix::<f64, D, D>::from_fn(|i, j| c[i][j]);
+    let name = format!("point `{id}` cov");
+    check_covariance_s(&name, &m)?;
+    let sym = nalgebra::DMatrix::<f64>::from_fn(D, D, |i, j| 0.5 * (c[i][j] + c[j][i]));
+    let eig = sym
+        .try_symmetric_eigen(f64::EPSILON, COV_EIGEN_MAX_ITER)
+        .ok_or(CoreError::EigenNoConvergence {
+            max_iter: COV_EIGEN_MAX_ITER,
+        })?;
+    let max = eig.eigenvalues.iter().fold(0.0_f64, |a, &v| a.max(v));
+    let min = eig.eigenvalues.iter().fold(f64::INFINITY, |a, &v| a.min(v));
+    if !(max > 0.0 && min > COV_MIN_RATIO * max) {
+        return Err(CoreError::SingularCovariance {
+            name,
+            reason: format!(
+                "not positive definite: smallest eigenvalue {min:e} m² is not above \
+                 {COV_MIN_RATIO:e} × the largest {max:e} m²"
+            ),
+        });
+    }
+    Ok(())
+}
+
 /// A validated set of points: finite values, valid and unique IDs,
-/// positive standard deviations, `D` in {2, 3}.
+/// positive standard deviations, symmetric positive-definite covariances (never both
+/// on one point), `D` in {2, 3}.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PointSet<const D: usize> {
     points: Vec<Point<D>>,
@@ -88,6 +178,13 @@ pub struct PointSet<const D: usize> {
 
 impl<const D: usize> PointSet<D> {
     /// Validate `points`. The first problem found is returned, naming the point.
+    ///
+    /// # Errors
+    /// `InvalidParameter` for a dimension other than 2 or 3, a non-positive standard
+    /// deviation, or a point with both `sigma` and `cov` (`name: "cov"`); `Empty`;
+    /// `InvalidId`; `NonFinite` (also `field: "cov"`); `DuplicatePoint`;
+    /// `InvalidCovariance` for a non-symmetric or indefinite `cov` and
+    /// `SingularCovariance` for a singular one, both named `point `ID` cov`.
     pub fn new(points: Vec<Point<D>>) -> Result<Self> {
         if D != 2 && D != 3 {
             return Err(CoreError::InvalidParameter {
@@ -135,6 +232,18 @@ impl<const D: usize> PointSet<D> {
                         });
                     }
                 }
+            }
+            if let Some(c) = &p.cov {
+                if p.sigma.is_some() {
+                    return Err(CoreError::InvalidParameter {
+                        name: "cov",
+                        reason: format!(
+                            "point `{}`: states both sigma and cov; give one form of precision",
+                            p.id
+                        ),
+                    });
+                }
+                validate_cov(&p.id, c)?;
             }
             if !seen.insert(p.id.as_str()) {
                 return Err(CoreError::DuplicatePoint { id: p.id.clone() });
@@ -230,6 +339,42 @@ mod serde_opt_arrays {
     }
 }
 
+/// serde for `Option<[[f64; D]; D]>` as a list of rows.
+mod serde_opt_matrix {
+    use serde::de::Error;
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer, const D: usize>(
+        v: &Option<[[f64; D]; D]>,
+        s: S,
+    ) -> Result<S::Ok, S::Error> {
+        match v {
+            Some(a) => s.collect_seq(a.iter().map(|row| row.to_vec())),
+            None => s.serialize_none(),
+        }
+    }
+
+    pub fn deserialize<'de, De: Deserializer<'de>, const D: usize>(
+        d: De,
+    ) -> Result<Option<[[f64; D]; D]>, De::Error> {
+        let Some(rows) = Option::<Vec<Vec<f64>>>::deserialize(d)? else {
+            return Ok(None);
+        };
+        let n = rows.len();
+        if n != D {
+            return Err(De::Error::invalid_length(n, &"one row per axis"));
+        }
+        let mut out = [[0.0; D]; D];
+        for (o, row) in out.iter_mut().zip(rows) {
+            let m = row.len();
+            *o = row
+                .try_into()
+                .map_err(|_| De::Error::invalid_length(m, &"one number per axis in each row"))?;
+        }
+        Ok(Some(out))
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -288,6 +433,14 @@ mod tests {
         let s = serde_json::to_string(&p).expect("serialise");
         let back: Point<3> = serde_json::from_str(&s).expect("deserialise");
         assert_eq!(back, p);
+        let c = Point::new("C", [1.0, 2.0], [0.1, 0.2]).with_cov([[4e-6, 1e-6], [1e-6, 2e-6]]);
+        let s = serde_json::to_string(&c).expect("serialise");
+        assert_eq!(
+            serde_json::from_str::<Point<2>>(&s).expect("deserialise"),
+            c
+        );
+        let ragged = r#"{"id":"A","x":[1,2],"u":[0,0],"cov":[[1,0],[0]]}"#;
+        assert!(serde_json::from_str::<Point<2>>(ragged).is_err());
         let short = r#"{"id":"A","x":[1.0,2.0],"u":[0.0,0.0,0.0]}"#;
         assert!(serde_json::from_str::<Point<3>>(short).is_err());
     }

@@ -22,7 +22,8 @@
 //!
 //! - precision weight `π_{p,i} = 1/σ_{p,i}²` (σ in metres, so π in 1/m²) when
 //!   [`FitOptions::use_precision`] is set and the members state their precision (all of
-//!   them or none: a mixture is an error); otherwise 1;
+//!   them or none: a mixture is an error); otherwise 1 (a full covariance on any member
+//!   switches to the coupled solution below, "Full covariances");
 //! - kernel (distance) weight `K_p` of the point's distance `d` (metres) from a centre
 //!   ([`DistanceWeight`]), divided by the largest kernel weight of the group so that it
 //!   lies in `(0, 1]`; 1 when no distance weighting is asked for.
@@ -70,11 +71,37 @@
 //!   `variance_factor = None`); that is meaningful only with stated precisions
 //!   (see [`FitStats::cov_gradient`]).
 //!
+//! ## Full covariances (coupled solution)
+//! When [`FitOptions::use_precision`] is set and any member states a full covariance
+//! ([`crate::Point::cov`]), the components are correlated and no longer separate. The fit
+//! is then one generalised least-squares adjustment (Ghilani & Wolf, *Adjustment
+//! Computations*, general least squares with a full weight matrix) with the `D + D²`
+//! unknowns `β = (t, vec G)` (row-major `vec G`) and, per point `k`,
+//!
+//! ```text
+//! A_k = [I_D, I_D ⊗ ((x_k − x̄)/s)ᵀ]      (D × (D+D²))
+//! P_k = C_k⁻¹                             (1/m², by Cholesky decomposition)
+//! W_k = K_k · P_k
+//! ```
+//!
+//! Members with only `sigma` take `C_k = diag(σ²)` in the same solution. With
+//! `N = Σ A_kᵀW_kA_k`, `B = Σ A_kᵀK_k²P_kA_k` and `C = Σ A_kᵀP_kA_k` the estimate is
+//! `β̂ = N⁻¹ Σ A_kᵀW_k u_k` (one step of iterative refinement), `vᵀPv = Σ v_kᵀP_kv_k`,
+//! `r = n·D − (D+D²)`, `r_eff = tr((I−H)ᵀP(I−H)P⁻¹) = n·D − 2(D+D²) + tr(N⁻¹BN⁻¹C)`
+//! (exactly `r` for `K = I`), `σ̂₀² = vᵀPv / r_eff`, and `Cov(β̂) = σ₀² N⁻¹BN⁻¹`
+//! (`σ₀² N⁻¹` for `K = I`). The covariance of `vec(G)` is then a full `D²×D²` matrix,
+//! not block diagonal. The weighted centroid and the moment matrix use
+//! `w̄_k = K_k · tr(P_k)/D`, which for a diagonal `P_k` is the mean per-axis weight of
+//! the diagonal path; with diagonal covariances both solutions therefore agree to
+//! rounding. The diagonal solution below stays in use whenever no member states a full
+//! covariance (or precision weighting is off).
+//!
 //! ## Weight checks
 //! A precision weight `1/σ²` or total weight `K·π` that is zero, subnormal or not finite
 //! (σ above about 10¹⁵⁴ m or below about 10⁻¹⁵⁴ m), and a normal matrix that overflows,
 //! are rejected as `InvalidParameter { name: "sigma" }` naming the point, rather than
-//! misread as degenerate geometry.
+//! misread as degenerate geometry; in the coupled solution the same for `C⁻¹` is
+//! `InvalidParameter { name: "cov" }`.
 //!
 //! ## Geometry check
 //! The centred weighted moment matrix `M = Σ_p w̄_p (x_p − x̄)(x_p − x̄)ᵀ` (m² times weight)
@@ -94,11 +121,11 @@
 
 use std::collections::{HashMap, HashSet};
 
-use nalgebra::{DMatrix, Matrix2, Matrix3, SMatrix};
+use nalgebra::{DMatrix, DVector, Matrix2, Matrix3, SMatrix};
 
 use super::{FitStats, GradientEstimate, RegionKind};
 use crate::error::{CoreError, Result};
-use crate::points::PointSet;
+use crate::points::{Point, PointSet};
 
 /// Default [`FitOptions::min_condition`]: smallest accepted `λ_min/λ_max` of the moment matrix.
 pub const DEFAULT_MIN_CONDITION: f64 = 1e-10;
@@ -175,10 +202,11 @@ fn positive_finite(name: &'static str, v: f64) -> Result<()> {
 /// Options of the weighted least-squares fit.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct FitOptions {
-    /// Weight each displacement component by `1/σ²` from [`crate::Point::sigma`]. When
-    /// any member of a fit states its precision, every member must (a fit that mixed
-    /// `1/σ²` with weight 1 for the others would be meaningless): a member without one
-    /// is an `InvalidParameter { name: "sigma" }` error naming it. When no member states
+    /// Weight each displacement component by `1/σ²` from [`crate::Point::sigma`], or
+    /// each point by `C⁻¹` from [`crate::Point::cov`] (coupled solution, module docs).
+    /// When any member of a fit states its precision (either form), every member must
+    /// (a fit that mixed `1/σ²` with weight 1 for the others would be meaningless): a
+    /// member without one is an `InvalidParameter { name: "sigma" }` error naming it. When no member states
     /// one, or the option is off, every precision weight is 1 (and `σ̂₀²` is in m²).
     pub use_precision: bool,
     /// Distance weighting relative to the fit's centre.
@@ -364,6 +392,8 @@ pub(crate) struct Fitter<const D: usize> {
     w: Vec<[f64; D]>,
     wbar: Vec<f64>,
     d: Vec<[f64; D]>,
+    /// Precision matrix `P = C⁻¹` per kept point (1/m²), coupled solution only.
+    pm: Vec<[[f64; D]; D]>,
 }
 
 impl<const D: usize> Fitter<D> {
@@ -375,6 +405,7 @@ impl<const D: usize> Fitter<D> {
             w: Vec::new(),
             wbar: Vec::new(),
             d: Vec::new(),
+            pm: Vec::new(),
         }
     }
 
@@ -448,11 +479,12 @@ impl<const D: usize> Fitter<D> {
             (None, _) => plain_centroid(points, members),
         };
 
-        // Precision weighting: all members state their precision, or none does (then
-        // unit weights); a mixture would put weight 1 beside weights 1/σ² ≈ 10⁶.
+        // Precision weighting: all members state their precision (`sigma` or `cov`), or
+        // none does (then unit weights); a mixture would put weight 1 beside weights
+        // 1/σ² ≈ 10⁶.
         if opts.use_precision
-            && members.iter().any(|&m| pts[m].sigma.is_some())
-            && let Some(&m) = members.iter().find(|&&m| pts[m].sigma.is_none())
+            && members.iter().any(|&m| pts[m].has_precision())
+            && let Some(&m) = members.iter().find(|&&m| !pts[m].has_precision())
         {
             return Err(CoreError::InvalidParameter {
                 name: "sigma",
@@ -464,6 +496,9 @@ impl<const D: usize> Fitter<D> {
                 ),
             });
         }
+
+        // A full covariance on any member switches to the coupled (generalised) solution.
+        let full = opts.use_precision && members.iter().any(|&m| pts[m].cov.is_some());
 
         // Kernel weights; their maximum normalises them to (0, 1].
         self.k.clear();
@@ -491,6 +526,7 @@ impl<const D: usize> Fitter<D> {
         self.prec.clear();
         self.w.clear();
         self.wbar.clear();
+        self.pm.clear();
         let mut kq = 0;
         for (q, &m) in members.iter().enumerate() {
             let kw = self.k[q];
@@ -505,7 +541,29 @@ impl<const D: usize> Fitter<D> {
             let p = &pts[m];
             let mut prec = [1.0; D];
             let mut w = [kw; D];
-            if opts.use_precision
+            if full {
+                // P = C⁻¹ from the full covariance (or diag σ² for a sigma-only member);
+                // `prec` holds its diagonal, so that w̄ = K·tr(P)/D.
+                let pm = precision_matrix(p, kind, label)?;
+                for k in 0..D {
+                    prec[k] = pm[k][k];
+                    w[k] = kw * prec[k];
+                }
+                if pm.iter().flatten().any(|v| !v.is_finite())
+                    || (0..D).any(|k| !prec[k].is_normal() || !w[k].is_normal())
+                {
+                    return Err(CoreError::InvalidParameter {
+                        name: "cov",
+                        reason: format!(
+                            "{}: point `{}`: the weight matrix C⁻¹ (kernel weight {kw:e}) \
+                             is outside the floating-point range of a weight",
+                            context(kind, label),
+                            p.id
+                        ),
+                    });
+                }
+                self.pm.push(pm);
+            } else if opts.use_precision
                 && let Some(s) = p.sigma
             {
                 for k in 0..D {
@@ -634,6 +692,10 @@ impl<const D: usize> Fitter<D> {
                 shape,
                 condition,
             });
+        }
+
+        if full {
+            return self.solve_coupled(points, label, kind, xbar, spread, localised, condition);
         }
 
         // One regression per displacement component on [1, d/s].
@@ -800,6 +862,237 @@ impl<const D: usize> Fitter<D> {
             var_translation,
         })
     }
+}
+
+impl<const D: usize> Fitter<D> {
+    /// The coupled (generalised) least-squares solution for members with full
+    /// covariances (module docs, "Full covariances"). Called by [`Fitter::fit`] after the
+    /// kernel weights, `P_k`, the weighted centroid `xbar` and the geometry checks; `s`
+    /// is the RMS spread used to scale the coordinates.
+    #[allow(clippy::too_many_arguments)]
+    fn solve_coupled(
+        &self,
+        points: &PointSet<D>,
+        label: &str,
+        kind: RegionKind,
+        xbar: [f64; D],
+        s: f64,
+        localised: bool,
+        condition: f64,
+    ) -> Result<FitOutput<D>> {
+        let pts = points.points();
+        let n = self.kept.len();
+        let m = D + D * D;
+        // Column c of A_k = [I_D, I_D ⊗ ((x_k − x̄)/s)ᵀ] has one non-zero entry: on row
+        // `axis(c)`, with value `val(q, c)`.
+        let axis = |c: usize| if c < D { c } else { (c - D) / D };
+        let val = |q: usize, c: usize| {
+            if c < D {
+                1.0
+            } else {
+                self.d[q][(c - D) % D] / s
+            }
+        };
+        // A_kᵀ P_k y for a D-vector y, added into `out` times `f`.
+        let add_atpy = |out: &mut DVector<f64>, q: usize, y: &[f64; D], f: f64| {
+            let p = &self.pm[q];
+            let mut py = [0.0; D];
+            for i in 0..D {
+                for j in 0..D {
+                    py[i] += p[i][j] * y[j];
+                }
+            }
+            for c in 0..m {
+                out[c] += f * val(q, c) * py[axis(c)];
+            }
+        };
+        let fitted = |q: usize, beta: &DVector<f64>| {
+            let mut f = [0.0; D];
+            for i in 0..D {
+                f[i] = beta[i];
+                for j in 0..D {
+                    f[i] += beta[D + i * D + j] * self.d[q][j] / s;
+                }
+            }
+            f
+        };
+
+        let mut nm = DMatrix::<f64>::zeros(m, m);
+        let mut bm = DMatrix::<f64>::zeros(m, m);
+        let mut cm = DMatrix::<f64>::zeros(m, m);
+        let mut rhs = DVector::<f64>::zeros(m);
+        for q in 0..n {
+            let kw = self.k[q];
+            let p = &self.pm[q];
+            for r in 0..m {
+                let (vr, ar) = (val(q, r), axis(r));
+                for c in 0..=r {
+                    let e = vr * p[ar][axis(c)] * val(q, c);
+                    nm[(r, c)] += kw * e;
+                    if localised {
+                        bm[(r, c)] += kw * kw * e;
+                        cm[(r, c)] += e;
+                    }
+                }
+            }
+            add_atpy(&mut rhs, q, &pts[self.kept[q]].u, kw);
+        }
+        if nm.iter().any(|v| !v.is_finite()) || rhs.iter().any(|v| !v.is_finite()) {
+            return Err(CoreError::InvalidParameter {
+                name: "cov",
+                reason: format!(
+                    "{}: the weights C⁻¹ (up to {:e} 1/m²) overflow the normal equations; \
+                     the covariances are too small",
+                    context(kind, label),
+                    self.wbar.iter().fold(0.0_f64, |a, &b| a.max(b))
+                ),
+            });
+        }
+        for r in 0..m {
+            for c in 0..r {
+                nm[(c, r)] = nm[(r, c)];
+                bm[(c, r)] = bm[(r, c)];
+                cm[(c, r)] = cm[(r, c)];
+            }
+        }
+        let degenerate = || CoreError::DegenerateGeometry {
+            context: context(kind, label),
+            shape: if D == 2 { "collinear" } else { "coplanar" },
+            condition,
+        };
+        let chol = nm.clone().cholesky().ok_or_else(degenerate)?;
+        let inv = chol.inverse();
+        if inv.iter().any(|v| !v.is_finite()) {
+            return Err(degenerate());
+        }
+        let mut beta = &inv * &rhs;
+        // One step of iterative refinement on the residuals, as in the diagonal path.
+        let mut rhs2 = DVector::<f64>::zeros(m);
+        for q in 0..n {
+            let f = fitted(q, &beta);
+            let u = pts[self.kept[q]].u;
+            let mut res = [0.0; D];
+            for i in 0..D {
+                res[i] = u[i] - f[i];
+            }
+            add_atpy(&mut rhs2, q, &res, self.k[q]);
+        }
+        beta += &inv * rhs2;
+
+        let mut t = [0.0; D];
+        let mut gradient = SMatrix::<f64, D, D>::zeros();
+        for i in 0..D {
+            t[i] = beta[i];
+            for j in 0..D {
+                gradient[(i, j)] = beta[D + i * D + j] / s;
+            }
+        }
+
+        // Residuals and vᵀPv = Σ v_kᵀ P_k v_k (precision only, not the kernel).
+        let mut residuals = Vec::with_capacity(n);
+        let mut vtpv = 0.0;
+        for q in 0..n {
+            let u = pts[self.kept[q]].u;
+            let mut v = [0.0; D];
+            for i in 0..D {
+                let mut f = t[i];
+                for j in 0..D {
+                    f += gradient[(i, j)] * self.d[q][j];
+                }
+                v[i] = u[i] - f;
+            }
+            let p = &self.pm[q];
+            for i in 0..D {
+                for j in 0..D {
+                    vtpv += v[i] * p[i][j] * v[j];
+                }
+            }
+            residuals.push(v);
+        }
+        let redundancy = n * D - m;
+        let (cov_beta, effective_redundancy) = if localised {
+            let sand = &inv * &bm * &inv;
+            let tr = (&sand * &cm).trace();
+            let r_eff = if redundancy == 0 {
+                0.0
+            } else {
+                (n * D) as f64 - 2.0 * m as f64 + tr
+            };
+            (sand, r_eff)
+        } else {
+            (inv, redundancy as f64)
+        };
+        let exact = redundancy == 0 || effective_redundancy.is_nan() || effective_redundancy <= 0.0;
+        let variance_factor = (!exact).then(|| vtpv / effective_redundancy);
+        let factor = variance_factor.unwrap_or(1.0);
+
+        let mut cov = DMatrix::<f64>::zeros(D * D, D * D);
+        let mut var_translation = [0.0; D];
+        for i in 0..D {
+            var_translation[i] = factor * cov_beta[(i, i)];
+        }
+        for a in 0..D * D {
+            for b in 0..D * D {
+                cov[(a, b)] = factor * cov_beta[(D + a, D + b)] / (s * s);
+            }
+        }
+
+        Ok(FitOutput {
+            estimate: GradientEstimate {
+                label: label.to_owned(),
+                kind,
+                members: self.kept.clone(),
+                centroid: xbar,
+                gradient,
+                translation: Some(t),
+                fit: Some(FitStats {
+                    n_points: n,
+                    redundancy,
+                    effective_redundancy,
+                    exact,
+                    variance_factor,
+                    residuals,
+                    cov_gradient: cov,
+                }),
+            },
+            var_translation,
+        })
+    }
+}
+
+/// Precision matrix `P = C⁻¹` (1/m², symmetric) of one point from the covariance it
+/// states (full `cov`, or `diag(σ²)` from `sigma`), by Cholesky decomposition.
+fn precision_matrix<const D: usize>(
+    p: &Point<D>,
+    kind: RegionKind,
+    label: &str,
+) -> Result<[[f64; D]; D]> {
+    let Some(c) = p.covariance() else {
+        return Err(CoreError::InvalidParameter {
+            name: "sigma",
+            reason: format!(
+                "{}: point `{}` states no precision while other points do",
+                context(kind, label),
+                p.id
+            ),
+        });
+    };
+    let dm = DMatrix::<f64>::from_fn(D, D, |i, j| c[(i, j)]);
+    let chol = dm.cholesky().ok_or_else(|| CoreError::SingularCovariance {
+        name: format!("point `{}` cov", p.id),
+        reason: format!(
+            "{}: no Cholesky decomposition (not positive definite)",
+            context(kind, label)
+        ),
+    })?;
+    let inv = chol.inverse();
+    let mut out = [[0.0; D]; D];
+    for i in 0..D {
+        for j in 0..D {
+            out[i][j] = 0.5 * (inv[(i, j)] + inv[(j, i)]);
+        }
+    }
+    Ok(out)
 }
 
 /// Unweighted centroid of the members, metres (members non-empty).

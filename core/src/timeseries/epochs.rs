@@ -126,6 +126,7 @@ impl<const D: usize> Epoch<D> {
                 x: p.x,
                 u: [0.0; D],
                 sigma: p.sigma,
+                cov: None,
             })
             .collect();
         PointSet::new(pts).map(|_| ()).map_err(|e| self.wrap(e))

@@ -560,6 +560,7 @@ fn displacement_set<const D: usize>(base: &Epoch<D>, e: &Epoch<D>) -> Result<Poi
             x: pb.x,
             u,
             sigma,
+            cov: None,
         });
     }
     PointSet::new(pts).map_err(|err| e.wrap(err))

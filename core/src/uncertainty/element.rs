@@ -19,6 +19,7 @@ use nalgebra::{DMatrix, SMatrix};
 
 use super::covariance::check_covariance_s;
 use crate::error::{CoreError, Result};
+use crate::points::PointSet;
 
 /// Relative determinant below which an element counts as degenerate:
 /// `|det E| ≤ 1e-12·(Σ|e_k|²)^(D/2)` (the threshold of [`crate::estimate::elements`]).
@@ -67,6 +68,58 @@ pub fn element_gradient_covariance<const D: usize>(
         }
     }
     Ok(cov)
+}
+
+/// Covariance of `vec(G)` (row-major, `D²×D²`, dimensionless) of the constant-strain
+/// element whose `D+1` vertices are `members` (indices into `points`), from the precision
+/// each vertex states: its full covariance [`crate::Point::cov`] or `diag(σ²)` from
+/// [`crate::Point::sigma`] (see [`crate::Point::covariance`]). The vertices are taken
+/// as mutually independent, as in [`element_gradient_covariance`].
+///
+/// Returns `Ok(None)` when some vertex states no precision (nothing to propagate).
+///
+/// # Errors
+/// [`CoreError::TooFewPoints`] when `members` does not hold exactly `D+1` indices;
+/// [`CoreError::InvalidParameter`] (`members`) for an index outside `points` or a
+/// repeated one; and the errors of [`element_gradient_covariance`] (degenerate element).
+pub fn element_gradient_covariance_from_points<const D: usize>(
+    points: &PointSet<D>,
+    members: &[usize],
+) -> Result<Option<DMatrix<f64>>> {
+    if members.len() != D + 1 {
+        return Err(CoreError::TooFewPoints {
+            context: "element".into(),
+            needed: D + 1,
+            got: members.len(),
+        });
+    }
+    let pts = points.points();
+    for (q, &m) in members.iter().enumerate() {
+        if m >= pts.len() {
+            return Err(CoreError::InvalidParameter {
+                name: "members",
+                reason: format!(
+                    "element vertex index {m} is outside the point set of {} points",
+                    pts.len()
+                ),
+            });
+        }
+        if members[..q].contains(&m) {
+            return Err(CoreError::InvalidParameter {
+                name: "members",
+                reason: format!("element repeats point `{}`", pts[m].id),
+            });
+        }
+    }
+    let mut cov = Vec::with_capacity(D + 1);
+    for &m in members {
+        match pts[m].covariance() {
+            Some(c) => cov.push(c),
+            None => return Ok(None),
+        }
+    }
+    let vertices: Vec<[f64; D]> = members.iter().map(|&m| pts[m].x).collect();
+    element_gradient_covariance(&vertices, &cov).map(Some)
 }
 
 /// Shape-function gradients `∇N_k` (1/m) of the `D+1` vertices of a simplex.

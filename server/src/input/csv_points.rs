@@ -6,16 +6,27 @@ use std::io::{BufReader, Read};
 use std::path::Path;
 
 use csv::{ByteRecord, ReaderBuilder, Trim};
-use kinema_core::points::validate_id;
+use kinema_core::kinematics::nalgebra::SMatrix;
+use kinema_core::points::{validate_cov, validate_id};
+use kinema_core::uncertainty::covariance::displacement_covariance;
 use kinema_core::{CoreError, Point};
 
 use super::error::{InputError, excerpt};
-use super::{Parsed, Points};
+use super::{Parsed, Points, to_square_metres};
 use crate::units::LengthUnit;
 
 /// Names accepted in a points header, for the error message on an unknown column.
 const EXPECTED: &str = "id (or point_id), x, y, z, ux, uy, uz, or x_ref, y_ref, z_ref, \
-x_cur, y_cur, z_cur, and optionally sigma_x, sigma_y, sigma_z";
+x_cur, y_cur, z_cur, and optionally sigma_x, sigma_y, sigma_z, or cov_xx, cov_xy, cov_xz, \
+cov_yy, cov_yz, cov_zz, or sigma_x_ref, sigma_y_ref, sigma_z_ref, sigma_x_cur, sigma_y_cur, \
+sigma_z_cur";
+
+/// Names of the covariance columns, by (row, column) of the upper triangle.
+const COV_NAMES: [[&str; 3]; 3] = [
+    ["cov_xx", "cov_xy", "cov_xz"],
+    ["", "cov_yy", "cov_yz"],
+    ["", "", "cov_zz"],
+];
 
 /// What one header column holds; the index is the axis (0 = x, 1 = y, 2 = z).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -26,6 +37,12 @@ enum Field {
     Ref(usize),
     Cur(usize),
     Sigma(usize),
+    /// Covariance entry `(a, b)` of the displacement, `a ≤ b` (unit²).
+    Cov(usize, usize),
+    /// Standard deviation of the reference-epoch coordinate.
+    SigmaRef(usize),
+    /// Standard deviation of the current-epoch coordinate.
+    SigmaCur(usize),
 }
 
 fn field_of(name: &str) -> Option<Field> {
@@ -46,6 +63,18 @@ fn field_of(name: &str) -> Option<Field> {
         "sigma_x" => Field::Sigma(0),
         "sigma_y" => Field::Sigma(1),
         "sigma_z" => Field::Sigma(2),
+        "cov_xx" => Field::Cov(0, 0),
+        "cov_xy" => Field::Cov(0, 1),
+        "cov_xz" => Field::Cov(0, 2),
+        "cov_yy" => Field::Cov(1, 1),
+        "cov_yz" => Field::Cov(1, 2),
+        "cov_zz" => Field::Cov(2, 2),
+        "sigma_x_ref" => Field::SigmaRef(0),
+        "sigma_y_ref" => Field::SigmaRef(1),
+        "sigma_z_ref" => Field::SigmaRef(2),
+        "sigma_x_cur" => Field::SigmaCur(0),
+        "sigma_y_cur" => Field::SigmaCur(1),
+        "sigma_z_cur" => Field::SigmaCur(2),
         _ => return None,
     })
 }
@@ -60,6 +89,10 @@ struct Layout<const D: usize> {
     /// True when `second` holds current coordinates rather than displacements.
     second_is_current: bool,
     sigma: Option<[usize; D]>,
+    /// Covariance columns: `cov[a][b]` for `a ≤ b` (the lower triangle mirrors it).
+    cov: Option<[[usize; D]; D]>,
+    /// Per-epoch standard deviation columns (reference, current).
+    epoch_sigma: Option<([usize; D], [usize; D])>,
     names: Vec<String>,
 }
 
@@ -254,6 +287,73 @@ fn layout<const D: usize>(
         }
         Some(s)
     };
+    // Full covariance: every upper-triangle entry of dimension D, or none.
+    let any_cov = fields.iter().any(|f| matches!(f, Field::Cov(..)));
+    if let Some(Field::Cov(a, b)) = fields
+        .iter()
+        .find(|f| matches!(f, Field::Cov(a, b) if *a >= D || *b >= D))
+    {
+        return Err(bad(format!(
+            "column `{}` in a 2D file (no z column is present)",
+            COV_NAMES[*a][*b]
+        )));
+    }
+    let cov = if any_cov {
+        let mut c = [[0; D]; D];
+        for a in 0..D {
+            for b in a..D {
+                c[a][b] = find(Field::Cov(a, b)).ok_or_else(|| {
+                    bad(format!(
+                        "missing column `{}`: give every entry of the covariance ({}) or none",
+                        COV_NAMES[a][b],
+                        cov_names(D)
+                    ))
+                })?;
+                c[b][a] = c[a][b];
+            }
+        }
+        Some(c)
+    } else {
+        None
+    };
+    // Per-epoch standard deviations: all of both epochs, or none.
+    let any_epoch = fields
+        .iter()
+        .any(|f| matches!(f, Field::SigmaRef(_) | Field::SigmaCur(_)));
+    if D == 2 && (find(Field::SigmaRef(2)).is_some() || find(Field::SigmaCur(2)).is_some()) {
+        return Err(bad(
+            "column `sigma_z_ref` or `sigma_z_cur` in a 2D file (no z column is present)".into(),
+        ));
+    }
+    let epoch_sigma = if any_epoch {
+        let mut r = [0; D];
+        let mut c = [0; D];
+        for k in 0..D {
+            let missing = |name: String| {
+                bad(format!(
+                    "missing column `{name}`: give sigma_x_ref, sigma_y_ref{z} and \
+                     sigma_x_cur, sigma_y_cur{zc} together, or none",
+                    z = if D == 3 { ", sigma_z_ref" } else { "" },
+                    zc = if D == 3 { ", sigma_z_cur" } else { "" },
+                ))
+            };
+            r[k] =
+                find(Field::SigmaRef(k)).ok_or_else(|| missing(format!("sigma_{}_ref", AX[k])))?;
+            c[k] =
+                find(Field::SigmaCur(k)).ok_or_else(|| missing(format!("sigma_{}_cur", AX[k])))?;
+        }
+        Some((r, c))
+    } else {
+        None
+    };
+    let forms = [sigma.is_some(), cov.is_some(), epoch_sigma.is_some()];
+    if forms.iter().filter(|f| **f).count() > 1 {
+        return Err(bad(
+            "give one form of precision: sigma_* (per axis), cov_* (full covariance) or \
+             sigma_*_ref with sigma_*_cur (per epoch), not several"
+                .into(),
+        ));
+    }
     let names = header
         .iter()
         .map(|n| {
@@ -269,6 +369,8 @@ fn layout<const D: usize>(
         second,
         second_is_current: refcur,
         sigma,
+        cov,
+        epoch_sigma,
         names,
     })
 }
@@ -358,6 +460,47 @@ fn rows<R: Read, const D: usize>(
             }
             point.sigma = Some(s);
         }
+        if let Some(cols) = &layout.cov {
+            let mut c = [[0.0; D]; D];
+            for a in 0..D {
+                for b in a..D {
+                    let v = number(&rec, cols[a][b], line, layout, path)?;
+                    c[a][b] = to_square_metres(unit, v);
+                    c[b][a] = c[a][b];
+                }
+            }
+            validate_cov(&point.id, &c)
+                .map_err(|e| bad_covariance(path, line, cols[0][0], &cov_names(D), &e))?;
+            point.cov = Some(c);
+        }
+        if let Some((rc, cc)) = &layout.epoch_sigma {
+            let mut cr = SMatrix::<f64, D, D>::zeros();
+            let mut ccur = SMatrix::<f64, D, D>::zeros();
+            for k in 0..D {
+                for (col, m) in [(rc[k], &mut cr), (cc[k], &mut ccur)] {
+                    let v = number(&rec, col, line, layout, path)?;
+                    if v <= 0.0 {
+                        return Err(InputError::NonPositiveSigma {
+                            path: path.to_owned(),
+                            line,
+                            column: col + 1,
+                            name: layout.names[col].clone(),
+                            value: v,
+                        });
+                    }
+                    let s = unit.to_metres(v);
+                    m[(k, k)] = s * s;
+                }
+            }
+            // Epochs taken as uncorrelated: no cross-covariance in the file.
+            let names = epoch_names(D);
+            let c = displacement_covariance(&cr, &ccur, None)
+                .map_err(|e| bad_covariance(path, line, rc[0], &names, &e))?;
+            let c: [[f64; D]; D] = std::array::from_fn(|a| std::array::from_fn(|b| c[(a, b)]));
+            validate_cov(&point.id, &c)
+                .map_err(|e| bad_covariance(path, line, rc[0], &names, &e))?;
+            point.cov = Some(c);
+        }
         points.push(point);
     }
     if points.is_empty() {
@@ -367,6 +510,34 @@ fn rows<R: Read, const D: usize>(
         });
     }
     Ok(points)
+}
+
+/// The covariance column names of dimension `d`, comma-separated.
+fn cov_names(d: usize) -> String {
+    let v: Vec<&str> = COV_NAMES[..d]
+        .iter()
+        .enumerate()
+        .flat_map(|(a, row)| row[a..d].iter().copied())
+        .collect();
+    v.join(", ")
+}
+
+/// The per-epoch standard deviation column names of dimension `d`, comma-separated.
+fn epoch_names(d: usize) -> String {
+    let ax = ["x", "y", "z"];
+    let r = ax[..d].iter().map(|a| format!("sigma_{a}_ref"));
+    let c = ax[..d].iter().map(|a| format!("sigma_{a}_cur"));
+    r.chain(c).collect::<Vec<_>>().join(", ")
+}
+
+/// A covariance of one row that is not a covariance, at `line`, column `col` (0-based,
+/// the first of its columns).
+fn bad_covariance(path: &str, line: u64, col: usize, names: &str, e: &CoreError) -> InputError {
+    InputError::Csv {
+        path: path.to_owned(),
+        line,
+        message: format!("columns {} ff. ({names}): {e}", col + 1),
+    }
 }
 
 /// Field `col` as UTF-8 text.

@@ -64,11 +64,28 @@ impl Points {
         self.len() == 0
     }
 
-    /// True when every point carries a stated standard deviation (`sigma_*`).
+    /// True when every point states its precision: standard deviations (`sigma_*`) or a
+    /// full covariance (`cov_*`, or per-epoch `sigma_*_ref`/`sigma_*_cur`). The old name
+    /// of [`Self::all_have_precision`], kept for its callers.
     pub fn all_have_sigma(&self) -> bool {
+        self.all_have_precision()
+    }
+
+    /// True when every point states its precision in either form
+    /// ([`kinema_core::Point::has_precision`]).
+    pub fn all_have_precision(&self) -> bool {
         match self {
-            Self::Plane(p) => p.points().iter().all(|q| q.sigma.is_some()),
-            Self::Space(p) => p.points().iter().all(|q| q.sigma.is_some()),
+            Self::Plane(p) => p.points().iter().all(Point::has_precision),
+            Self::Space(p) => p.points().iter().all(Point::has_precision),
+        }
+    }
+
+    /// True when some point states a full covariance (`cov_*` or per-epoch columns)
+    /// rather than per-axis standard deviations.
+    pub fn any_has_covariance(&self) -> bool {
+        match self {
+            Self::Plane(p) => p.points().iter().any(|q| q.cov.is_some()),
+            Self::Space(p) => p.points().iter().any(|q| q.cov.is_some()),
         }
     }
 
@@ -100,11 +117,24 @@ pub struct ReadOptions {
 ///   within a factor of two of each other (Sterbenz lemma), which holds for any
 ///   realistic movement of a point away from the origin.
 ///
-/// plus optional `sigma_x,sigma_y[,sigma_z]` (all or none). `point_id` may stand for `id`.
+/// plus, optionally, one form of precision (all columns of a form or none):
+/// - `sigma_x,sigma_y[,sigma_z]`: standard deviation per axis, in the length unit;
+/// - `cov_xx,cov_xy,cov_yy` (2D) or `cov_xx,cov_xy,cov_xz,cov_yy,cov_yz,cov_zz` (3D): the
+///   full covariance of the displacement in the length unit squared (mm² → m² is ÷10⁶),
+///   symmetric positive definite;
+/// - `sigma_x_ref,sigma_y_ref[,sigma_z_ref]` with `sigma_x_cur,sigma_y_cur[,sigma_z_cur]`:
+///   standard deviations of the reference and current coordinates, combined into the
+///   displacement covariance `C_ref + C_cur`
+///   ([`kinema_core::uncertainty::covariance::displacement_covariance`]). The two epochs
+///   are taken as uncorrelated: the file has no cross-covariance.
+///
+/// `point_id` may stand for `id`.
 ///
 /// JSON: `{"length_unit": "m"|"mm" (optional), "points": [{"id": "T1" or 1, "x", "y",
-/// ["z"], "ux", "uy", ["uz"], ["sigma_x", "sigma_y", ["sigma_z"]]}]}`; unknown members
-/// are errors and a declared `length_unit` must agree with `options.length_unit`.
+/// ["z"], "ux", "uy", ["uz"], precision}]}` with the same three optional forms of
+/// precision as members (`"sigma_x"` …, `"cov_xx"` …, `"sigma_x_ref"` … `"sigma_x_cur"`
+/// …); unknown members are errors and a declared `length_unit` must agree with
+/// `options.length_unit`.
 pub fn read_points(path: &Path, options: &ReadOptions) -> Result<Points, InputError> {
     let display = path.display().to_string();
     let src = source::open(path, &display, options.progress)?;
@@ -139,6 +169,15 @@ impl Parsed {
             Self::Plane(p) => PointSet::new(p).map(Points::Plane).map_err(core),
             Self::Space(p) => PointSet::new(p).map(Points::Space).map_err(core),
         }
+    }
+}
+
+/// A covariance entry in the declared length unit squared, converted to m² in one
+/// correctly rounded step (mm²: ÷10⁶).
+pub(crate) fn to_square_metres(unit: LengthUnit, v: f64) -> f64 {
+    match unit {
+        LengthUnit::Metre => v,
+        LengthUnit::Millimetre => v / 1e6,
     }
 }
 

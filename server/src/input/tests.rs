@@ -202,6 +202,175 @@ fn csv_invalid_id_and_non_positive_sigma() {
 }
 
 #[test]
+fn csv_full_covariance_2d_and_3d_in_mm_squared() {
+    // 2D: cov_xx, cov_xy, cov_yy in mm², any column order; mm² → m² is ÷10⁶.
+    let text = "id,x,y,ux,uy,cov_yy,cov_xy,cov_xx\nT1,0,0,1,2,4,1.5,9\nT2,1000,0,0,0,1,0,1\n";
+    let p = read(text, MM).expect("reads");
+    assert!(
+        p.all_have_sigma(),
+        "a covariance counts as stated precision"
+    );
+    assert!(p.all_have_precision());
+    assert!(p.any_has_covariance());
+    let v = plane(p);
+    assert_eq!(v[0].sigma, None);
+    assert_eq!(v[0].cov, Some([[9e-6, 1.5e-6], [1.5e-6, 4e-6]]));
+    assert_eq!(v[1].cov, Some([[1e-6, 0.0], [0.0, 1e-6]]));
+    // 3D in metres: taken as given, mirrored into the lower triangle.
+    let text = "id,x,y,z,ux,uy,uz,cov_xx,cov_xy,cov_xz,cov_yy,cov_yz,cov_zz\n\
+                B,1,2,3,0,0,0,4e-6,1e-6,-1e-6,5e-6,2e-6,6e-6\n";
+    let v = space(read(text, M).expect("reads"));
+    assert_eq!(
+        v[0].cov,
+        Some([[4e-6, 1e-6, -1e-6], [1e-6, 5e-6, 2e-6], [-1e-6, 2e-6, 6e-6]])
+    );
+    // Without precision columns.
+    let p = read("id,x,y,ux,uy\nT1,0,0,0,0\n", M).expect("reads");
+    assert!(!p.all_have_sigma() && !p.all_have_precision() && !p.any_has_covariance());
+}
+
+#[test]
+fn csv_per_epoch_sigma_combines_into_the_displacement_covariance() {
+    // Source: propagation of variance for a difference of independent epochs,
+    // C_u = C_ref + C_cur (Ghilani & Wolf, Adjustment Computations, ch. 6).
+    let text = "id,x_ref,y_ref,x_cur,y_cur,sigma_x_ref,sigma_y_ref,sigma_x_cur,sigma_y_cur\n\
+                A,1000,250,1000.5,249.75,3,1,4,2\n";
+    let p = read(text, MM).expect("reads");
+    assert!(p.all_have_sigma());
+    let v = plane(p);
+    // σ_x² = (3² + 4²) mm² = 25 mm² = 2.5e-5 m²; σ_y² = (1² + 2²) mm² = 5e-6 m².
+    let c = v[0].cov.expect("covariance");
+    assert!((c[0][0] - 2.5e-5).abs() < 1e-20, "{c:?}");
+    assert!((c[1][1] - 5e-6).abs() < 1e-20, "{c:?}");
+    assert_eq!(c[0][1], 0.0, "epochs are taken as uncorrelated");
+    // 3D, displacement form, metres.
+    let text = "id,x,y,z,ux,uy,uz,sigma_x_ref,sigma_y_ref,sigma_z_ref,sigma_x_cur,sigma_y_cur,sigma_z_cur\n\
+                B,0,0,0,0,0,0,0.003,0.003,0.006,0.004,0.004,0.008\n";
+    let v = space(read(text, M).expect("reads"));
+    let c = v[0].cov.expect("covariance");
+    for (k, want) in [2.5e-5, 2.5e-5, 1e-4].into_iter().enumerate() {
+        assert!((c[k][k] - want).abs() < 1e-18, "{c:?}");
+    }
+}
+
+#[test]
+fn csv_covariance_errors_name_line_and_columns() {
+    // Missing entry.
+    let e = err("id,x,y,ux,uy,cov_xx,cov_xy\nT1,0,0,0,0,1,0\n", M);
+    assert!(e.contains("p.csv:1: missing column `cov_yy`"), "{e}");
+    // z entry in a 2D file.
+    let e = err(
+        "id,x,y,ux,uy,cov_xx,cov_xy,cov_yy,cov_zz\nT1,0,0,0,0,1,0,1,1\n",
+        M,
+    );
+    assert!(e.contains("p.csv:1: column `cov_zz` in a 2D file"), "{e}");
+    // Two forms of precision.
+    let e = err(
+        "id,x,y,ux,uy,sigma_x,sigma_y,cov_xx,cov_xy,cov_yy\nT1,0,0,0,0,1,1,1,0,1\n",
+        M,
+    );
+    assert!(e.contains("p.csv:1: give one form of precision"), "{e}");
+    let e = err(
+        "id,x,y,ux,uy,sigma_x_ref,sigma_y_ref,sigma_x_cur\nT1,0,0,0,0,1,1,1\n",
+        M,
+    );
+    assert!(e.contains("p.csv:1: missing column `sigma_y_cur`"), "{e}");
+    // Not positive definite on line 3 (|cov_xy| > √(cov_xx·cov_yy)): names line and columns.
+    let e = err(
+        "id,x,y,ux,uy,cov_xx,cov_xy,cov_yy\nT1,0,0,0,0,1,0,1\nT2,1,0,0,0,1,2,1\n",
+        MM,
+    );
+    assert!(
+        e.contains("p.csv:3: columns 6 ff. (cov_xx, cov_xy, cov_yy): covariance `point `T2` cov`"),
+        "{e}"
+    );
+    // Singular (perfect correlation).
+    let e = err("id,x,y,ux,uy,cov_xx,cov_xy,cov_yy\nT1,0,0,0,0,1,1,1\n", MM);
+    assert!(
+        e.contains("p.csv:2: columns 6 ff.") && e.contains("singular"),
+        "{e}"
+    );
+    // Not a number / not finite, with line:column.
+    let e = err("id,x,y,ux,uy,cov_xx,cov_xy,cov_yy\nT1,0,0,0,0,1,nan,1\n", M);
+    assert!(
+        e.contains("p.csv:2:7 (column cov_xy): `nan` is not a finite number"),
+        "{e}"
+    );
+    // Non-positive per-epoch standard deviation.
+    let e = err(
+        "id,x,y,ux,uy,sigma_x_ref,sigma_y_ref,sigma_x_cur,sigma_y_cur\nT1,0,0,0,0,1,1,-1,1\n",
+        M,
+    );
+    assert!(
+        e.ends_with("p.csv:2:8 (column sigma_x_cur): standard deviation must be positive, got -1"),
+        "{e}"
+    );
+}
+
+#[test]
+fn json_full_covariance_and_per_epoch_sigma() {
+    let text = r#"{"length_unit": "mm", "points": [
+  {"id": "A", "x": 0, "y": 0, "ux": 1, "uy": 2, "cov_xx": 9, "cov_xy": 1.5, "cov_yy": 4},
+  {"id": "B", "x": 1000, "y": 0, "ux": 0, "uy": 0,
+   "sigma_x_ref": 3, "sigma_y_ref": 1, "sigma_x_cur": 4, "sigma_y_cur": 2}
+]}"#;
+    let p = read(text, MM).expect("reads");
+    assert!(p.all_have_sigma());
+    let v = plane(p);
+    assert_eq!(v[0].cov, Some([[9e-6, 1.5e-6], [1.5e-6, 4e-6]]));
+    let c = v[1].cov.expect("combined");
+    // (3² + 4²) mm² and (1² + 2²) mm² (independent epochs, Ghilani & Wolf ch. 6).
+    assert!((c[0][0] - 2.5e-5).abs() < 1e-20 && (c[1][1] - 5e-6).abs() < 1e-20);
+    assert_eq!(c[0][1], 0.0);
+    let text = r#"{"points": [{"id": "C", "x": 0, "y": 0, "z": 0, "ux": 0, "uy": 0, "uz": 0,
+  "cov_xx": 4e-6, "cov_xy": 1e-6, "cov_xz": 0, "cov_yy": 5e-6, "cov_yz": 2e-6, "cov_zz": 6e-6}]}"#;
+    let v = space(read(text, M).expect("reads"));
+    assert_eq!(v[0].cov.expect("cov")[2][1], 2e-6);
+}
+
+#[test]
+fn json_covariance_errors_carry_line_and_column() {
+    let e = err(
+        "{\"points\": [\n{\"id\": 1, \"x\": 0, \"y\": 0, \"ux\": 0, \"uy\": 0, \"cov_xx\": 1, \"cov_yy\": 1}\n]}",
+        M,
+    );
+    assert!(
+        e.contains("p.json:3:1: points[0] (`1`): give cov_xx, cov_xy, cov_yy together"),
+        "{e}"
+    );
+    let e = err(
+        "{\"points\": [\n{\"id\": 1, \"x\": 0, \"y\": 0, \"ux\": 0, \"uy\": 0, \"sigma_x\": 1, \"sigma_y\": 1, \"cov_xx\": 1, \"cov_xy\": 0, \"cov_yy\": 1}\n]}",
+        M,
+    );
+    assert!(
+        e.contains("p.json:3:1:") && e.contains("one form of precision"),
+        "{e}"
+    );
+    let e = err(
+        "{\"points\": [\n{\"id\": 1, \"x\": 0, \"y\": 0, \"ux\": 0, \"uy\": 0, \"cov_xx\": 1, \"cov_xy\": 3, \"cov_yy\": 1}\n]}",
+        M,
+    );
+    assert!(
+        e.contains("p.json:3:1: points[0]: covariance `point `1` cov` is invalid"),
+        "{e}"
+    );
+    let e = err(
+        "{\"points\": [\n{\"id\": 1, \"x\": 0, \"y\": 0, \"ux\": 0, \"uy\": 0, \"cov_xx\": 1, \"cov_xy\": 0, \"cov_yy\": 1, \"cov_zz\": 1}\n]}",
+        M,
+    );
+    assert!(e.contains("give cov_xx, cov_xy, cov_yy together"), "{e}");
+    let e = err(
+        "{\"points\": [\n{\"id\": 1, \"x\": 0, \"y\": 0, \"ux\": 0, \"uy\": 0, \"sigma_x_ref\": 1, \"sigma_y_ref\": 1, \"sigma_x_cur\": 0, \"sigma_y_cur\": 1}\n]}",
+        M,
+    );
+    assert!(
+        e.contains("p.json:3:1:")
+            && e.contains("sigma_x_cur must be a positive standard deviation, got 0"),
+        "{e}"
+    );
+}
+
+#[test]
 fn json_gen_field_shape_with_numeric_ids() {
     // As tests/peer/gen_field.py --format json writes it (-n 2 --seed 7).
     let text = r#"{"points":[{"id":1,"x":62.5095466604667,"y":17.94427601939151,"ux":0.006202691101924294,"uy":0.0009779860665866732},{"id":2,"x":77.56856902451935,"y":4.504143799811837,"ux":0.00820484460996524,"uy":0.002405395013674279}]}"#;
