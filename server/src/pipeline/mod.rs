@@ -33,9 +33,8 @@ use kinema_core::kinematics::{KinematicsOptions, analyze2, analyze3};
 use kinema_core::significance::{
     DeformationParameters, TestResult, VarianceFactor, test_zero_strain,
 };
-use kinema_core::uncertainty::{
-    IsotropyTest, covariance_from_sigma, element_gradient_covariance, propagate2, propagate3,
-};
+use kinema_core::uncertainty::element::element_gradient_covariance_from_points;
+use kinema_core::uncertainty::{IsotropyTest, propagate2, propagate3};
 use kinema_core::{CoreError, PointSet};
 use nalgebra::{DMatrix, SMatrix};
 
@@ -416,18 +415,10 @@ where
     }
 
     /// Precision of a constant-strain element, propagated through its shape functions
-    /// from the stated precision of its vertices (a-priori factor 1); none when a vertex
-    /// states none.
+    /// from the stated precision (σ per axis or full covariance) of its vertices
+    /// (a-priori factor 1); none when a vertex states none.
     fn element_precision(&self, members: &[usize]) -> Option<GradientPrecision> {
-        let pts = self.points.points();
-        let mut xs = Vec::with_capacity(members.len());
-        let mut covs = Vec::with_capacity(members.len());
-        for &i in members {
-            let p = pts.get(i)?;
-            xs.push(p.x);
-            covs.push(covariance_from_sigma(&p.sigma?).ok()?);
-        }
-        let cov = element_gradient_covariance(&xs, &covs).ok()?;
+        let cov = element_gradient_covariance_from_points(self.points, members).ok()??;
         Some(GradientPrecision {
             cov,
             factor: VarianceFactor::Apriori { sigma0_sq: 1.0 },
