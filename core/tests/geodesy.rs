@@ -131,8 +131,8 @@ fn frame() -> EnuFrame {
     EnuFrame::new(&Geodetic::from_degrees(47.376_9, 8.541_7, 408.0)).expect("valid origin")
 }
 
-// Properties any ECEF → ENU rotation (EPSG method 9836) must have; an EPSG 9836
-// worked example is still owed (not recalled, not invented).
+// Properties any ECEF → ENU rotation (EPSG method 9836) must have, beside the worked
+// example above.
 #[test]
 fn enu_frame_properties() {
     let f = frame();
