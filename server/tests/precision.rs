@@ -146,3 +146,53 @@ fn a_large_strain_is_significant_and_no_precision_leaves_the_block_empty() {
     assert_eq!(t.text(0, "sd_exx_microstrain"), "");
     assert_eq!(t.text(0, "strain_test"), "");
 }
+
+#[test]
+fn minimal_detectable_strain_matches_scipy_noncentrality() {
+    // Baarda's minimal detectable strain in the least favourable direction is
+    // √(λ₀ q_max), q_max the largest eigenvalue of the strain covariance; on the square,
+    // q_max = var(exx) = σ²/(4a²). λ₀(α = 0.05, power 0.8, 3 dof) comes from
+    // scipy.stats.ncx2 and a root solve (scipy.optimize.brentq), independent of Kinema.
+    let dir = tempfile::tempdir().expect("dir");
+    let (a, sigma) = (10.0, 1e-3);
+    let f = write(
+        dir.path(),
+        "sq.csv",
+        &square(a, sigma, [[1e-4, 0.0], [0.0, -5e-5]]),
+    );
+    let out = analyze_ok(&[
+        s(&f),
+        "--method",
+        "network",
+        "--use-precision",
+        "--trust-apriori",
+        "--format",
+        "csv",
+        "--strain-unit",
+        "strain",
+    ]);
+    let t = &parse_csv_sections(&out)[0];
+    let mds = t.num(0, "mds_strain");
+    let script = "from scipy.stats import chi2, ncx2\n\
+                  from scipy.optimize import brentq\n\
+                  c = chi2.isf(0.05, 3)\n\
+                  print(repr(brentq(lambda l: ncx2.sf(c, 3, l) - 0.8, 1e-6, 100.0, xtol=1e-14)))\n";
+    let py = std::process::Command::new(kinema_tests::python())
+        .args(["-c", script])
+        .output()
+        .expect("python runs");
+    assert!(
+        py.status.success(),
+        "{}",
+        String::from_utf8_lossy(&py.stderr)
+    );
+    let lambda0: f64 = String::from_utf8_lossy(&py.stdout)
+        .trim()
+        .parse()
+        .expect("a number");
+    let want = (lambda0 * sigma * sigma / (4.0 * a * a)).sqrt();
+    assert!(
+        (mds - want).abs() < 1e-7 * want,
+        "{mds} vs {want} (λ₀ = {lambda0})"
+    );
+}

@@ -475,8 +475,13 @@ pub fn fit_cells<const D: usize>(
     }
 }
 
-fn test_columns() -> [Column; 4] {
+fn test_columns(s: &'static str) -> [Column; 5] {
     [
+        Column::new(
+            "mds",
+            s,
+            "minimal detectable strain: the smallest strain, in its least favourable combination of components, that the strain test detects with 80 % power at --alpha (Baarda's reliability measure)",
+        ),
         Column::new(
             "strain_test",
             "",
@@ -529,7 +534,7 @@ pub fn uncertainty_columns2(u: Units) -> Vec<Column> {
             "false when the Mohr radius is below k = 2 of its standard deviations: the state is isotropic within the noise and theta1 means nothing",
         ),
     ];
-    c.extend(test_columns());
+    c.extend(test_columns(s));
     c
 }
 
@@ -570,11 +575,12 @@ pub fn uncertainty_columns3(u: Units) -> Vec<Column> {
             "false when a principal gap is below k = 2 of its standard deviations: some principal directions mean nothing",
         ),
     ];
-    c.extend(test_columns());
+    c.extend(test_columns(s));
     c
 }
 
-fn test_cells(t: Option<&TestResult>, row: &mut Vec<Cell>) {
+fn test_cells(mds: Option<f64>, t: Option<&TestResult>, u: Units, row: &mut Vec<Cell>) {
+    row.push(mds.map_or(Cell::Empty, |v| u.s(v)));
     match t {
         Some(t) => {
             let name = match t.dof2 {
@@ -595,6 +601,7 @@ fn test_cells(t: Option<&TestResult>, row: &mut Vec<Cell>) {
 /// Append the precision cells of a 2D row.
 pub fn uncertainty_cells2(
     un: Option<&Uncertainty2>,
+    mds: Option<f64>,
     test: Option<&TestResult>,
     u: Units,
     row: &mut Vec<Cell>,
@@ -614,12 +621,13 @@ pub fn uncertainty_cells2(
         ]),
         None => row.extend(std::iter::repeat_n(Cell::Empty, 10)),
     }
-    test_cells(test, row);
+    test_cells(mds, test, u, row);
 }
 
 /// Append the precision cells of a 3D row.
 pub fn uncertainty_cells3(
     un: Option<&Uncertainty3>,
+    mds: Option<f64>,
     test: Option<&TestResult>,
     u: Units,
     row: &mut Vec<Cell>,
@@ -641,7 +649,7 @@ pub fn uncertainty_cells3(
         }
         None => row.extend(std::iter::repeat_n(Cell::Empty, 12)),
     }
-    test_cells(test, row);
+    test_cells(mds, test, u, row);
 }
 
 #[cfg(test)]
@@ -675,10 +683,10 @@ mod tests {
         strain_cells3(&k3, u, &mut row);
         assert_eq!(row.len() + 5, columns3(u, Extra::None).len());
         row.clear();
-        uncertainty_cells2(None, None, u, &mut row);
+        uncertainty_cells2(None, None, None, u, &mut row);
         assert_eq!(row.len(), uncertainty_columns2(u).len());
         row.clear();
-        uncertainty_cells3(None, None, u, &mut row);
+        uncertainty_cells3(None, None, None, u, &mut row);
         assert_eq!(row.len(), uncertainty_columns3(u).len());
     }
 }

@@ -31,7 +31,7 @@ use kinema_core::estimate::quality::{QualityThresholds, TetrahedronQuality, Tria
 use kinema_core::estimate::{FitStats, GradientEstimate, Rejected};
 use kinema_core::kinematics::{KinematicsOptions, analyze2, analyze3};
 use kinema_core::significance::{
-    DeformationParameters, TestResult, VarianceFactor, test_zero_strain,
+    DeformationParameters, TestResult, VarianceFactor, noncentrality, test_zero_strain,
 };
 use kinema_core::uncertainty::element::element_gradient_covariance_from_points;
 use kinema_core::uncertainty::{IsotropyTest, propagate2, propagate3};
@@ -112,6 +112,35 @@ pub struct StatOptions {
     pub alpha: f64,
     /// Trust the a-priori variance factor 1 (chi-square) even when a fit estimates one.
     pub trust_apriori: bool,
+    /// Non-centrality λ₀(alpha, [`MDS_POWER`], m) for m = 3 (2D) and m = 6 (3D).
+    pub lambda0: [f64; 2],
+}
+
+/// Power of the strain test at which the minimal detectable strain is given (Baarda's
+/// customary 80 %, common practice).
+pub const MDS_POWER: f64 = 0.80;
+
+/// Minimal detectable strain in the least favourable direction of strain space:
+/// `√(λ₀ · q_max)` with `q_max` the largest eigenvalue of the covariance of the strain
+/// components and `λ₀(α, β, m)` the non-centrality of the test (Baarda 1968).
+fn mds_from(eigenvalues: impl Iterator<Item = f64>, lambda0: f64) -> Option<f64> {
+    let qmax = eigenvalues.fold(f64::NEG_INFINITY, f64::max);
+    (qmax.is_finite() && qmax >= 0.0).then(|| (lambda0 * qmax).sqrt())
+}
+
+// Fixed-size matrices on purpose: nalgebra's dynamic-size decompositions have given
+// wrong factors here (see STACK notes); the fixed-size symmetric eigen-solver is the
+// one the kinematics use and test.
+fn mds_worst2(c: &[[f64; 3]; 3], lambda0: f64) -> Option<f64> {
+    let m = nalgebra::Matrix3::from_fn(|i, j| c[i][j]);
+    let eig = m.try_symmetric_eigen(f64::EPSILON, 1000)?;
+    mds_from(eig.eigenvalues.iter().copied(), lambda0)
+}
+
+fn mds_worst3(c: &[[f64; 6]; 6], lambda0: f64) -> Option<f64> {
+    let m = nalgebra::Matrix6::from_fn(|i, j| c[i][j]);
+    let eig = m.try_symmetric_eigen(f64::EPSILON, 1000)?;
+    mds_from(eig.eigenvalues.iter().copied(), lambda0)
 }
 
 fn test_of<const D: usize>(
@@ -155,7 +184,10 @@ impl StrainRow<2> for Dim<2> {
     ) -> Option<bool> {
         let un = prec.and_then(|p| propagate2(g, &p.cov, &stats.isotropy).ok());
         let test = prec.and_then(|p| test_of(g, p, stats.alpha));
-        columns::uncertainty_cells2(un.as_ref(), test.as_ref(), u, row);
+        let mds = un
+            .as_ref()
+            .and_then(|x| mds_worst2(&x.cov_strain, stats.lambda0[0]));
+        columns::uncertainty_cells2(un.as_ref(), mds, test.as_ref(), u, row);
         test.map(|t| t.significant)
     }
     fn shape_cells(v: &[[f64; 2]], row: &mut Vec<Cell>) {
@@ -194,7 +226,10 @@ impl StrainRow<3> for Dim<3> {
     ) -> Option<bool> {
         let un = prec.and_then(|p| propagate3(g, &p.cov, &stats.isotropy).ok());
         let test = prec.and_then(|p| test_of(g, p, stats.alpha));
-        columns::uncertainty_cells3(un.as_ref(), test.as_ref(), u, row);
+        let mds = un
+            .as_ref()
+            .and_then(|x| mds_worst3(&x.cov_strain, stats.lambda0[1]));
+        columns::uncertainty_cells3(un.as_ref(), mds, test.as_ref(), u, row);
         test.map(|t| t.significant)
     }
     fn shape_cells(v: &[[f64; 3]], row: &mut Vec<Cell>) {
@@ -506,10 +541,15 @@ pub fn run(request: &Request, sink: &mut dyn RowSink, target: &str) -> Result<()
         strain: request.strain_unit,
         precision_weighted: request.params.use_precision,
     };
+    let alpha = request.params.alpha;
     let stats = StatOptions {
         isotropy: IsotropyTest::default(),
-        alpha: request.params.alpha,
+        alpha,
         trust_apriori: request.params.trust_apriori,
+        lambda0: [
+            noncentrality(alpha, MDS_POWER, 3)?,
+            noncentrality(alpha, MDS_POWER, 6)?,
+        ],
     };
     let ctx = Context {
         request,
