@@ -196,3 +196,36 @@ fn minimal_detectable_strain_matches_scipy_noncentrality() {
         "{mds} vs {want} (λ₀ = {lambda0})"
     );
 }
+
+#[test]
+fn a_perfect_fit_gets_no_verdict() {
+    // An exact affine field on seven points: the residuals are rounding noise, so the
+    // a-posteriori factor says nothing about the survey (common practice: a test needs
+    // real residuals). No standard deviation, minimal detectable strain or test.
+    let dir = tempfile::tempdir().expect("dir");
+    let mut t = String::from("id,x,y,ux,uy\n");
+    for (k, (x, y)) in [
+        (0.0, 0.0),
+        (10.0, 0.0),
+        (0.0, 10.0),
+        (10.0, 10.0),
+        (5.0, 3.0),
+        (2.0, 8.0),
+        (7.0, 6.0),
+    ]
+    .iter()
+    .enumerate()
+    {
+        let ux = 1e-4 * x + 3e-5 * y + 0.002;
+        let uy = -2e-5 * x + 5e-5 * y - 0.001;
+        t.push_str(&format!("P{k},{x},{y},{ux},{uy}\n"));
+    }
+    let f = write(dir.path(), "exact.csv", &t);
+    let out = analyze_ok(&[s(&f), "--method", "network", "--format", "json"]);
+    let v: serde_json::Value = serde_json::from_str(&out).expect("json");
+    let row = &v["network"][0];
+    assert!(row["sd_exx_microstrain"].is_null(), "{row}");
+    assert!(row["strain_test"].is_null(), "{row}");
+    let notes = v["summary"]["notes"].to_string();
+    assert!(notes.contains("perfect fit"), "{notes}");
+}

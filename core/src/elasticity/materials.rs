@@ -100,7 +100,8 @@ fn steel() -> Material {
                  ν = 0.3, α = 12×10⁻⁶ /K"
             .into(),
         note: "Steels covered by EN 1993-1-1 (S235 to S460); α for temperatures up to 100 °C \
-               (from memory)."
+               (from memory). Stresses use the isotropic G = E/(2(1+ν)) = 80 769 N/mm²; the \
+               rounded 81 000 N/mm² of the standard is informational."
             .into(),
         concrete: None,
     }
@@ -118,7 +119,9 @@ fn aluminium() -> Material {
         source: "EN 1999-1-1 §3.2.5: E = 70 000 N/mm², G = 27 000 N/mm², ν = 0.3, \
                  α = 23×10⁻⁶ /K"
             .into(),
-        note: "Wrought and cast alloys covered by EN 1999-1-1; α for 20 °C to 100 °C \
+        note: "Stresses use the isotropic G = E/(2(1+ν)) = 26 923 N/mm²; the rounded \
+               27 000 N/mm² of the standard is informational. \
+               Wrought and cast alloys covered by EN 1999-1-1; α for 20 °C to 100 °C \
                (from memory)."
             .into(),
         concrete: None,

@@ -23,10 +23,11 @@
 //! `x = ENU(reference)`, the displacement `u = R·(X_cur − X_ref)`.
 //! 3D (E, N, U) by default; `horizontal` keeps E and N only.
 //!
-//! A sigma triple is rotated from the antenna's frame into the origin's frame
-//! (`R0·R_iᵀ·diag(σ²)·R_i·R0ᵀ`, the core's covariance rotations) and its diagonal kept;
-//! the correlations dropped are of the order of the angle between the two frames
-//! (1.6·10⁻⁴ rad per km of distance from the origin) times the variance difference.
+//! A sigma triple is a covariance diag(σ²) in the antenna's own East-North-Up frame; it is
+//! rotated into the origin's frame (`R0·R_iᵀ·diag(σ²)·R_i·R0ᵀ`, the core's covariance
+//! rotations) and kept whole as the point's covariance (its East-North block with
+//! `horizontal`), so the small correlations the rotation creates (of the order of the
+//! angle between the two frames, 1.6·10⁻⁴ rad per km from the origin) are not dropped.
 
 use std::path::Path;
 
@@ -267,17 +268,17 @@ fn convert(
         // precision; the choice keeps the conversion from adding error of its own.)
         let d = Vector3::from(r.x_cur) - Vector3::from(r.x_ref);
         let u: [f64; 3] = (frame.rotation * d).into();
-        let sigma = match &r.sigma {
+        let cov = match &r.sigma {
             None => None,
             Some((s, at)) => Some(rotate_sigma(*s, at, frame).map_err(core)?),
         };
         if horizontal {
             let mut p = Point::new(r.id.clone(), [x[0], x[1]], [u[0], u[1]]);
-            p.sigma = sigma.map(|s| [s[0], s[1]]);
+            p.cov = cov.map(|c| [[c[0][0], c[0][1]], [c[1][0], c[1][1]]]);
             plane.push(p);
         } else {
             let mut p = Point::new(r.id.clone(), x, u);
-            p.sigma = sigma;
+            p.cov = cov;
             space.push(p);
         }
     }
@@ -288,13 +289,14 @@ fn convert(
     })
 }
 
-/// Standard deviations along E, N, U of the frame at `at` → along the axes of `frame`:
-/// the diagonal of `R0·R_atᵀ·diag(σ²)·R_at·R0ᵀ`.
-fn rotate_sigma(s: [f64; 3], at: &Geodetic, frame: &EnuFrame) -> Result<[f64; 3], CoreError> {
+/// Standard deviations along E, N, U of the frame at `at` → the covariance along the
+/// axes of `frame`, `R0·R_atᵀ·diag(σ²)·R_at·R0ᵀ` (m², row-major, symmetrised).
+fn rotate_sigma(s: [f64; 3], at: &Geodetic, frame: &EnuFrame) -> Result<[[f64; 3]; 3], CoreError> {
     let local = EnuFrame::new(at)?;
     let c = Matrix3::from_diagonal(&Vector3::new(s[0] * s[0], s[1] * s[1], s[2] * s[2]));
     let c = frame.covariance_to_enu(&local.covariance_to_ecef(&c)?)?;
-    Ok([c[(0, 0)].sqrt(), c[(1, 1)].sqrt(), c[(2, 2)].sqrt()])
+    let c = (c + c.transpose()) * 0.5;
+    Ok(std::array::from_fn(|i| std::array::from_fn(|j| c[(i, j)])))
 }
 
 fn duplicate(rows: &[Row], path: &str, id: String) -> InputError {

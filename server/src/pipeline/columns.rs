@@ -480,7 +480,7 @@ fn test_columns(s: &'static str) -> [Column; 5] {
         Column::new(
             "mds",
             s,
-            "minimal detectable strain: the smallest strain, in its least favourable combination of components, that the strain test detects with 80 % power at --alpha (Baarda's reliability measure)",
+            "minimal detectable strain: the smallest strain, in its least favourable combination of components, that the strain test detects with 80 % power at --alpha (Baarda's reliability measure; chi-square approximation, optimistic for an F test with few degrees of freedom)",
         ),
         Column::new(
             "strain_test",

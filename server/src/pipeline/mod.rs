@@ -116,6 +116,21 @@ pub struct StatOptions {
     pub lambda0: [f64; 2],
 }
 
+/// Residuals at or below this many ulp of the largest displacement make a fit "perfect"
+/// (no usable a-posteriori variance factor).
+pub const PERFECT_FIT_ULPS: f64 = 1000.0;
+
+/// Degrees of freedom of the F test of a fit: `⌊r_eff⌋`, at least 1 (equal to the
+/// redundancy without distance weighting).
+fn effective_dof<const D: usize>(f: &FitStats<D>) -> usize {
+    let r = f.effective_redundancy.floor();
+    if r.is_finite() && r >= 1.0 {
+        r as usize
+    } else {
+        f.redundancy.max(1)
+    }
+}
+
 /// Power of the strain test at which the minimal detectable strain is given (Baarda's
 /// customary 80 %, common practice).
 pub const MDS_POWER: f64 = 0.80;
@@ -249,6 +264,7 @@ struct Tally {
     inadequate: u64,
     significant: u64,
     not_significant: u64,
+    perfect_fits: u64,
     rejected: Vec<Rejected>,
     by_reason: BTreeMap<String, u64>,
 }
@@ -260,6 +276,7 @@ impl Tally {
             inadequate: 0,
             significant: 0,
             not_significant: 0,
+            perfect_fits: 0,
             rejected: Vec::new(),
             by_reason: BTreeMap::new(),
         }
@@ -390,8 +407,14 @@ where
         } else {
             Vec::new()
         };
+        if let Some(f) = &e.fit
+            && !f.exact
+            && self.perfect_fit(f, &e.members)
+        {
+            self.tally.perfect_fits += 1;
+        }
         let prec = match &e.fit {
-            Some(f) => self.fit_precision(f),
+            Some(f) => self.fit_precision(f, &e.members),
             None if extra == Extra::Shape => self.element_precision(&e.members),
             None => None,
         };
@@ -420,10 +443,15 @@ where
     /// has redundancy (F test), the a-priori factor 1 when it is trusted or the fit is
     /// exact with stated precision (chi-square test); none for an exact fit without
     /// stated precision (its covariance carries an arbitrary 1 m²).
-    fn fit_precision(&self, f: &FitStats<D>) -> Option<GradientPrecision> {
+    fn fit_precision(&self, f: &FitStats<D>, members: &[usize]) -> Option<GradientPrecision> {
         let weighted = self.units.precision_weighted;
         let vf = f.variance_factor;
         if f.exact && !weighted {
+            return None;
+        }
+        if !f.exact && self.perfect_fit(f, members) {
+            // Residuals at the rounding level of the data: the a-posteriori factor is
+            // rounding noise, and any test or standard deviation built on it is nonsense.
             return None;
         }
         if f.exact || (self.stats.trust_apriori && weighted) {
@@ -444,9 +472,29 @@ where
             cov: f.cov_gradient.clone(),
             factor: VarianceFactor::Estimated {
                 sigma0_sq: v,
-                redundancy: f.redundancy,
+                // σ̂₀² = vᵀPv / r_eff; with distance weighting r_eff is not an integer
+                // and differs from the point count, so the F test takes ⌊r_eff⌋
+                // (conservative), never the raw count.
+                redundancy: effective_dof(f),
             },
         })
+    }
+
+    /// True when every residual is at the rounding level of the displacements
+    /// (≤ 1000 ulp of the largest): the data fit the model exactly.
+    fn perfect_fit(&self, f: &FitStats<D>, members: &[usize]) -> bool {
+        let pts = self.points.points();
+        let max_u = members
+            .iter()
+            .filter_map(|&i| pts.get(i))
+            .flat_map(|p| p.u.iter().map(|v| v.abs()))
+            .fold(0.0, f64::max);
+        let max_v = f
+            .residuals
+            .iter()
+            .flat_map(|r| r.iter().map(|v| v.abs()))
+            .fold(0.0, f64::max);
+        max_v <= PERFECT_FIT_ULPS * f64::EPSILON * max_u
     }
 
     /// Precision of a constant-strain element, propagated through its shape functions
@@ -476,6 +524,13 @@ where
         }
         let mut all_notes = notes;
         let tested = self.tally.significant + self.tally.not_significant;
+        if self.tally.perfect_fits > 0 {
+            all_notes.push(format!(
+                "{} fits have residuals at the rounding level of the data (a perfect fit): \
+                 no standard deviations or strain test are given for them.",
+                self.tally.perfect_fits
+            ));
+        }
         if tested > 0 {
             all_notes.push(format!(
                 "{} of {} tested regions show strain beyond the survey noise at alpha = {} \

@@ -417,6 +417,7 @@ fn solve_one(
         Cell::Empty,
     ];
     columns::strain_cells2(&k, u, &mut cells);
+    blank_unmeasured(&mut cells, u);
     rosette_cells(&res, u, &mut cells);
     if let Some(s) = &req.stress
         && let Err(e) = s.cells(&g, &mut cells)
@@ -512,6 +513,30 @@ pub fn run(req: &RosetteRequest, sink: &mut dyn RowSink, target: &str) -> Result
         footer.notes.push(s.note());
     }
     sink.finish(&footer).map_err(out)
+}
+
+/// A rosette measures the strain tensor only: no rotation, no finite-strain measures and
+/// no small-strain adequacy (they would come from G := ε, not from the gauges). Those
+/// cells are left empty rather than filled with values the gauges never saw.
+const NOT_MEASURED_BY_ROSETTES: [&str; 9] = [
+    "rotation",
+    "gl_exx",
+    "gl_eyy",
+    "gl_exy",
+    "jacobian",
+    "small_strain_ok",
+    "adequacy_note",
+    "rotation_spurious_strain",
+    "gradient_quadratic_strain",
+];
+
+fn blank_unmeasured(cells: &mut [Cell], u: Units) {
+    let cols = columns::columns2(u, Extra::None);
+    for (c, cell) in cols.iter().zip(cells.iter_mut()) {
+        if NOT_MEASURED_BY_ROSETTES.contains(&c.name) {
+            *cell = Cell::Empty;
+        }
+    }
 }
 
 #[cfg(test)]
