@@ -37,9 +37,10 @@ pub struct Point<const D: usize> {
     #[serde(default, with = "serde_opt_arrays")]
     pub sigma: Option<[f64; D]>,
     /// Covariance of the displacement, m², row-major; symmetric positive definite.
-    /// Mutually exclusive with `sigma`.
+    /// Mutually exclusive with `sigma`. Boxed: most points state none, and a point set
+    /// of 10⁶ points should not carry the space of 10⁶ matrices.
     #[serde(default, with = "serde_opt_matrix")]
-    pub cov: Option<[[f64; D]; D]>,
+    pub cov: Option<Box<[[f64; D]; D]>>,
 }
 
 impl<const D: usize> Point<D> {
@@ -64,7 +65,7 @@ impl<const D: usize> Point<D> {
     /// `cov[i][j] = cov(u_i, u_j)`). A point with both `sigma` and `cov` is rejected by
     /// [`PointSet::new`].
     pub fn with_cov(mut self, cov: [[f64; D]; D]) -> Self {
-        self.cov = Some(cov);
+        self.cov = Some(Box::new(cov));
         self
     }
 
@@ -344,8 +345,11 @@ mod serde_opt_matrix {
     use serde::de::Error;
     use serde::{Deserialize, Deserializer, Serializer};
 
+    /// An optional boxed `D×D` matrix, row-major.
+    type OptMatrix<const D: usize> = Option<Box<[[f64; D]; D]>>;
+
     pub fn serialize<S: Serializer, const D: usize>(
-        v: &Option<[[f64; D]; D]>,
+        v: &OptMatrix<D>,
         s: S,
     ) -> Result<S::Ok, S::Error> {
         match v {
@@ -356,7 +360,7 @@ mod serde_opt_matrix {
 
     pub fn deserialize<'de, De: Deserializer<'de>, const D: usize>(
         d: De,
-    ) -> Result<Option<[[f64; D]; D]>, De::Error> {
+    ) -> Result<OptMatrix<D>, De::Error> {
         let Some(rows) = Option::<Vec<Vec<f64>>>::deserialize(d)? else {
             return Ok(None);
         };
@@ -371,7 +375,7 @@ mod serde_opt_matrix {
                 .try_into()
                 .map_err(|_| De::Error::invalid_length(m, &"one number per axis in each row"))?;
         }
-        Ok(Some(out))
+        Ok(Some(Box::new(out)))
     }
 }
 

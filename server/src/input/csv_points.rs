@@ -471,7 +471,7 @@ fn rows<R: Read, const D: usize>(
             }
             validate_cov(&point.id, &c)
                 .map_err(|e| bad_covariance(path, line, cols[0][0], &cov_names(D), &e))?;
-            point.cov = Some(c);
+            point.cov = Some(Box::new(c));
         }
         if let Some((rc, cc)) = &layout.epoch_sigma {
             let mut cr = SMatrix::<f64, D, D>::zeros();
@@ -499,7 +499,7 @@ fn rows<R: Read, const D: usize>(
             let c: [[f64; D]; D] = std::array::from_fn(|a| std::array::from_fn(|b| c[(a, b)]));
             validate_cov(&point.id, &c)
                 .map_err(|e| bad_covariance(path, line, rc[0], &names, &e))?;
-            point.cov = Some(c);
+            point.cov = Some(Box::new(c));
         }
         points.push(point);
     }

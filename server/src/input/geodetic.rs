@@ -274,11 +274,11 @@ fn convert(
         };
         if horizontal {
             let mut p = Point::new(r.id.clone(), [x[0], x[1]], [u[0], u[1]]);
-            p.cov = cov.map(|c| [[c[0][0], c[0][1]], [c[1][0], c[1][1]]]);
+            p.cov = cov.map(|c| Box::new([[c[0][0], c[0][1]], [c[1][0], c[1][1]]]));
             plane.push(p);
         } else {
             let mut p = Point::new(r.id.clone(), x, u);
-            p.cov = cov;
+            p.cov = cov.map(Box::new);
             space.push(p);
         }
     }

@@ -219,7 +219,7 @@ impl Collector {
             if let Some(c) = cov {
                 let c = [[c[0][0], c[0][1]], [c[1][0], c[1][1]]];
                 validate_cov(&q.id, &c).map_err(|e| format!("points[{i}]: {e}"))?;
-                q.cov = Some(c);
+                q.cov = Some(Box::new(c));
             }
             self.plane.push(q);
         } else {
@@ -229,7 +229,7 @@ impl Collector {
             q.sigma = sigma;
             if let Some(c) = cov {
                 validate_cov(&q.id, &c).map_err(|e| format!("points[{i}]: {e}"))?;
-                q.cov = Some(c);
+                q.cov = Some(Box::new(c));
             }
             self.space.push(q);
         }

@@ -214,14 +214,14 @@ fn csv_full_covariance_2d_and_3d_in_mm_squared() {
     assert!(p.any_has_covariance());
     let v = plane(p);
     assert_eq!(v[0].sigma, None);
-    assert_eq!(v[0].cov, Some([[9e-6, 1.5e-6], [1.5e-6, 4e-6]]));
-    assert_eq!(v[1].cov, Some([[1e-6, 0.0], [0.0, 1e-6]]));
+    assert_eq!(v[0].cov.as_deref(), Some(&[[9e-6, 1.5e-6], [1.5e-6, 4e-6]]));
+    assert_eq!(v[1].cov.as_deref(), Some(&[[1e-6, 0.0], [0.0, 1e-6]]));
     // 3D in metres: taken as given, mirrored into the lower triangle.
     let text = "id,x,y,z,ux,uy,uz,cov_xx,cov_xy,cov_xz,cov_yy,cov_yz,cov_zz\n\
                 B,1,2,3,0,0,0,4e-6,1e-6,-1e-6,5e-6,2e-6,6e-6\n";
     let v = space(read(text, M).expect("reads"));
     assert_eq!(
-        v[0].cov,
+        v[0].cov.as_deref().copied(),
         Some([[4e-6, 1e-6, -1e-6], [1e-6, 5e-6, 2e-6], [-1e-6, 2e-6, 6e-6]])
     );
     // Without precision columns.
@@ -239,7 +239,7 @@ fn csv_per_epoch_sigma_combines_into_the_displacement_covariance() {
     assert!(p.all_have_sigma());
     let v = plane(p);
     // σ_x² = (3² + 4²) mm² = 25 mm² = 2.5e-5 m²; σ_y² = (1² + 2²) mm² = 5e-6 m².
-    let c = v[0].cov.expect("covariance");
+    let c = v[0].cov.as_deref().copied().expect("covariance");
     assert!((c[0][0] - 2.5e-5).abs() < 1e-20, "{c:?}");
     assert!((c[1][1] - 5e-6).abs() < 1e-20, "{c:?}");
     assert_eq!(c[0][1], 0.0, "epochs are taken as uncorrelated");
@@ -247,7 +247,7 @@ fn csv_per_epoch_sigma_combines_into_the_displacement_covariance() {
     let text = "id,x,y,z,ux,uy,uz,sigma_x_ref,sigma_y_ref,sigma_z_ref,sigma_x_cur,sigma_y_cur,sigma_z_cur\n\
                 B,0,0,0,0,0,0,0.003,0.003,0.006,0.004,0.004,0.008\n";
     let v = space(read(text, M).expect("reads"));
-    let c = v[0].cov.expect("covariance");
+    let c = v[0].cov.as_deref().copied().expect("covariance");
     for (k, want) in [2.5e-5, 2.5e-5, 1e-4].into_iter().enumerate() {
         assert!((c[k][k] - want).abs() < 1e-18, "{c:?}");
     }
@@ -317,15 +317,15 @@ fn json_full_covariance_and_per_epoch_sigma() {
     let p = read(text, MM).expect("reads");
     assert!(p.all_have_sigma());
     let v = plane(p);
-    assert_eq!(v[0].cov, Some([[9e-6, 1.5e-6], [1.5e-6, 4e-6]]));
-    let c = v[1].cov.expect("combined");
+    assert_eq!(v[0].cov.as_deref(), Some(&[[9e-6, 1.5e-6], [1.5e-6, 4e-6]]));
+    let c = v[1].cov.as_deref().copied().expect("combined");
     // (3² + 4²) mm² and (1² + 2²) mm² (independent epochs, Ghilani & Wolf ch. 6).
     assert!((c[0][0] - 2.5e-5).abs() < 1e-20 && (c[1][1] - 5e-6).abs() < 1e-20);
     assert_eq!(c[0][1], 0.0);
     let text = r#"{"points": [{"id": "C", "x": 0, "y": 0, "z": 0, "ux": 0, "uy": 0, "uz": 0,
   "cov_xx": 4e-6, "cov_xy": 1e-6, "cov_xz": 0, "cov_yy": 5e-6, "cov_yz": 2e-6, "cov_zz": 6e-6}]}"#;
     let v = space(read(text, M).expect("reads"));
-    assert_eq!(v[0].cov.expect("cov")[2][1], 2e-6);
+    assert_eq!(v[0].cov.as_deref().copied().expect("cov")[2][1], 2e-6);
 }
 
 #[test]
