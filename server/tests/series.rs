@@ -507,12 +507,10 @@ impl Normal {
 fn cst(x: [[f64; 2]; 3]) -> [[f64; 2]; 3] {
     let two_a =
         (x[1][0] - x[0][0]) * (x[2][1] - x[0][1]) - (x[2][0] - x[0][0]) * (x[1][1] - x[0][1]);
-    let mut g = [[0.0; 2]; 3];
-    for i in 0..3 {
+    [0usize, 1, 2].map(|i| {
         let (j, k) = ((i + 1) % 3, (i + 2) % 3);
-        g[i] = [(x[j][1] - x[k][1]) / two_a, (x[k][0] - x[j][0]) / two_a];
-    }
-    g
+        [(x[j][1] - x[k][1]) / two_a, (x[k][0] - x[j][0]) / two_a]
+    })
 }
 
 /// Stated precision per epoch (metres, both axes), different at every epoch so that

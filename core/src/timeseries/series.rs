@@ -527,16 +527,8 @@ pub fn strain_series<const D: usize>(
         });
         let mut increments = Vec::with_capacity(s.len().saturating_sub(1));
         for w in s.windows(2) {
-            let test = increment_test(
-                regions,
-                base,
-                &by_label,
-                ri,
-                &w[0].epoch,
-                &w[1].epoch,
-                opts.alpha,
-                opts.trust_apriori,
-            )?;
+            let test =
+                increment_test(regions, base, &by_label, ri, &w[0].epoch, &w[1].epoch, opts)?;
             increments.push(Increment {
                 from: w[0].epoch.clone(),
                 to: w[1].epoch.clone(),
@@ -913,8 +905,7 @@ fn increment_test<const D: usize>(
     ri: usize,
     from: &str,
     to: &str,
-    alpha: f64,
-    trust_apriori: bool,
+    opts: &SeriesOptions,
 ) -> Result<Option<TestResult>> {
     let (Some(ea), Some(eb)) = (by_label.get(from), by_label.get(to)) else {
         return Ok(None);
@@ -942,7 +933,7 @@ fn increment_test<const D: usize>(
             let Some(fit) = &est.fit else {
                 return Ok(None);
             };
-            if trust_apriori || fit.exact || fit.redundancy == 0 {
+            if opts.trust_apriori || fit.exact || fit.redundancy == 0 {
                 DeformationParameters::from_estimate(&est, Some(1.0))?
             } else if fit
                 .variance_factor
@@ -954,5 +945,5 @@ fn increment_test<const D: usize>(
             }
         }
     };
-    test_zero_strain(&params, alpha).map(Some)
+    test_zero_strain(&params, opts.alpha).map(Some)
 }
