@@ -808,3 +808,116 @@ fn point_missing_from_baseline_excludes_region_everywhere() {
         }
     }
 }
+
+/// Epochs of `net2` with a linear field plus a deterministic perturbation (a few mm) and
+/// a stated sigma of `sig[k]` metres per axis at epoch `k`.
+fn noisy_epochs_with_sigma(sig: &[f64; 5]) -> Vec<Epoch<2>> {
+    let mut e = epochs_from(&net2(), &DAYS, |x, d| {
+        [d * 1.0e-6 * x[0], d * (-0.4e-6 * x[1] + 0.2e-6 * x[0])]
+    });
+    for (k, ep) in e.iter_mut().enumerate() {
+        for (q, p) in ep.points.iter_mut().enumerate() {
+            // Perturbation from a fixed sine sequence (invented, not random).
+            let s = ((k * 9 + q) as f64 * 1.7).sin();
+            p.x[0] += 0.002 * s;
+            p.x[1] -= 0.0015 * s * s;
+            p.sigma = Some([sig[k], sig[k]]);
+        }
+    }
+    e
+}
+
+#[test]
+fn precision_weighting_leaves_the_baseline_out_and_tests_increments_directly() {
+    let sig = [0.001, 0.002, 0.0015, 0.001, 0.003];
+    let epochs = noisy_epochs_with_sigma(&sig);
+    let regions = groups_regions();
+    let mut opts = SeriesOptions::new("E0");
+    opts.weighting = RateWeighting::Precision;
+    let out = strain_series(&epochs, &regions, &opts).expect("series");
+    let names = strain_component_names::<2>();
+    for reg in &out.regions {
+        let base = &reg.samples[0];
+        assert_eq!(base.strain_std.as_deref(), Some(&[0.0; 3][..]));
+        // Weighted rate = weighted_slope (Draper & Smith, weighted least squares; checked
+        // against the closed form above) over the epochs after the baseline with
+        // sigma = the propagated strain sd.
+        let after = &reg.samples[1..];
+        let t: Vec<f64> = after.iter().map(|s| s.days_from_baseline).collect();
+        let Rate::Estimated(rr) = &reg.rate else {
+            panic!("rate of {}", reg.region)
+        };
+        assert!(rr.weighted && !rr.includes_baseline);
+        assert_eq!(rr.n_epochs, 4);
+        for c in 0..names.len() {
+            let y: Vec<f64> = after.iter().map(|s| s.strain[c]).collect();
+            let sd: Vec<f64> = after
+                .iter()
+                .map(|s| s.strain_std.as_ref().expect("sd")[c])
+                .collect();
+            assert!(sd.iter().all(|v| *v > 0.0));
+            let fit = weighted_slope(&t, &y, Some(&sd)).expect("fit");
+            rel_close(rr.components[c].per_day, fit.slope, 1e-12, "weighted rate");
+        }
+        // The increment's test is on the strain of x_to − x_from on the baseline
+        // geometry with sigma sqrt(σ_from² + σ_to²) (linear propagation of variance);
+        // a group with redundancy uses F (Koch, general linear hypothesis).
+        for (k, inc) in reg.increments.iter().enumerate() {
+            let (a, b) = (&epochs[k], &epochs[k + 1]);
+            let pts: Vec<Point<2>> = epochs[0]
+                .points
+                .iter()
+                .zip(a.points.iter().zip(&b.points))
+                .map(|(p0, (pa, pb))| Point {
+                    id: p0.id.clone(),
+                    x: p0.x,
+                    u: [pb.x[0] - pa.x[0], pb.x[1] - pa.x[1]],
+                    sigma: Some([sig[k].hypot(sig[k + 1]); 2]),
+                    cov: None,
+                })
+                .collect();
+            let set = PointSet::new(pts).expect("set");
+            let Regions::Groups { groups, options } = &regions else {
+                unreachable!()
+            };
+            let g: Vec<Group> = groups
+                .iter()
+                .filter(|g| g.name == reg.region)
+                .cloned()
+                .collect();
+            let est = fit_groups(&set, &g, options).expect("fit").remove(0);
+            let p = kinema_core::significance::DeformationParameters::from_estimate(&est, None)
+                .expect("params");
+            let want = kinema_core::significance::test_zero_strain(&p, 0.05).expect("test");
+            let got = inc.test.as_ref().expect("test present");
+            assert_eq!(got.dof2, want.dof2);
+            assert!(got.dof2.is_some(), "F test for a group with redundancy");
+            rel_close(got.statistic, want.statistic, 1e-9, "increment statistic");
+        }
+    }
+    // Bad alpha is a typed error naming it.
+    opts.alpha = 1.5;
+    assert!(matches!(
+        strain_series(&epochs, &regions, &opts),
+        Err(CoreError::InvalidParameter { name: "alpha", .. })
+    ));
+}
+
+#[test]
+fn without_sigma_there_is_no_sd_no_test_and_equal_weights() {
+    let epochs = epochs_from(&net2(), &DAYS, |x, d| [d * 1.0e-6 * x[0], 0.0]);
+    let mut opts = SeriesOptions::new("E0");
+    opts.weighting = RateWeighting::Precision;
+    for regions in [elements_regions(), groups_regions()] {
+        let out = strain_series(&epochs, &regions, &opts).expect("series");
+        for reg in &out.regions {
+            assert!(reg.samples.iter().all(|s| s.strain_std.is_none()));
+            assert!(reg.increments.iter().all(|i| i.test.is_none()));
+            let Rate::Estimated(rr) = &reg.rate else {
+                panic!("rate")
+            };
+            assert!(!rr.weighted && rr.includes_baseline);
+            assert_eq!(rr.n_epochs, 5);
+        }
+    }
+}

@@ -479,3 +479,268 @@ fn bad_input_exits_2_naming_the_value() {
     let err = run("notemp.csv", &no_temp, &["--thermal-alpha", "1e-5"]);
     assert!(err.contains("epoch `S0` has no temperature"), "{err}");
 }
+
+/// Deterministic standard normal numbers: splitmix64 (Steele, Lea & Flood, "Fast
+/// splittable pseudorandom number generators", OOPSLA 2014) and the Box–Muller
+/// transform (Box & Muller, Ann. Math. Statist. 29, 1958).
+struct Normal(u64);
+
+impl Normal {
+    fn uniform(&mut self) -> f64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^= z >> 31;
+        ((z >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+    fn next(&mut self) -> f64 {
+        let (a, b) = (self.uniform(), self.uniform());
+        (-2.0 * a.ln()).sqrt() * (std::f64::consts::TAU * b).cos()
+    }
+}
+
+/// Shape-function gradients `(b_k, c_k) = (∂N_k/∂x, ∂N_k/∂y)` of a linear triangle:
+/// `b_i = (y_j − y_k)/(2A)`, `c_i = (x_k − x_j)/(2A)` for cyclic `(i, j, k)`.
+// Source: Zienkiewicz & Taylor, The Finite Element Method, vol. 1, the three-node
+// (constant strain) triangle.
+fn cst(x: [[f64; 2]; 3]) -> [[f64; 2]; 3] {
+    let two_a =
+        (x[1][0] - x[0][0]) * (x[2][1] - x[0][1]) - (x[2][0] - x[0][0]) * (x[1][1] - x[0][1]);
+    [0usize, 1, 2].map(|i| {
+        let (j, k) = ((i + 1) % 3, (i + 2) % 3);
+        [(x[j][1] - x[k][1]) / two_a, (x[k][0] - x[j][0]) / two_a]
+    })
+}
+
+/// Stated precision per epoch (metres, both axes), different at every epoch so that
+/// the weights differ.
+const SIGMA: [f64; 5] = [0.001, 0.002, 0.0005, 0.003, 0.0015];
+
+#[test]
+fn weighted_rate_matches_the_closed_form_with_stated_sigmas() {
+    let mut rng = Normal(7);
+    // Positions: the linear field plus a deterministic perturbation of the size of the
+    // stated sigma, so that the line does not fit exactly.
+    let mut pos = Vec::new();
+    let mut t = String::from("epoch,time,id,x,y,sigma_x,sigma_y\n");
+    for (k, (label, time, day, _)) in EPOCHS.iter().enumerate() {
+        let mut here = Vec::new();
+        for (id, x) in NET {
+            let d = linear(x, *day, 0.0);
+            let p = [
+                x[0] + d[0] + SIGMA[k] * rng.next(),
+                x[1] + d[1] + SIGMA[k] * rng.next(),
+            ];
+            t.push_str(&format!(
+                "{label},{time},{id},{:?},{:?},{:?},{:?}\n",
+                p[0], p[1], SIGMA[k], SIGMA[k]
+            ));
+            here.push(p);
+        }
+        pos.push(here);
+    }
+    let dir = tempfile::tempdir().expect("dir");
+    let e = write(&dir, "epochs.csv", &t);
+    let el = write(&dir, "el.csv", "element_id,v0,v1,v2\nE1,A,B,C\n");
+    let doc = json(&[
+        s(&e),
+        "--series",
+        "--baseline",
+        "S0",
+        "--elements",
+        s(&el),
+        "--strain-unit",
+        "strain",
+    ]);
+    // Element strain on the baseline geometry: e = Σ b_k u_k (Zienkiewicz & Taylor, as
+    // above); var(exx) = Σ σ_k² b_k², var(eyy) = Σ σ_k² c_k², var(exy) = Σ σ_k² (b_k² +
+    // c_k²)/4 for independent vertices with σ_k² = σ_baseline² + σ_epoch² per axis
+    // (linear propagation of variance).
+    let v = [0usize, 1, 2];
+    let base: [[f64; 2]; 3] = v.map(|i| pos[0][i]);
+    let g = cst(base);
+    let mut want: Vec<(f64, [f64; 3], [f64; 3])> = Vec::new();
+    for k in 1..EPOCHS.len() {
+        let u: Vec<[f64; 2]> = v
+            .iter()
+            .map(|&i| [pos[k][i][0] - pos[0][i][0], pos[k][i][1] - pos[0][i][1]])
+            .collect();
+        let exx: f64 = (0..3).map(|q| g[q][0] * u[q][0]).sum();
+        let eyy: f64 = (0..3).map(|q| g[q][1] * u[q][1]).sum();
+        let exy: f64 = (0..3)
+            .map(|q| 0.5 * (g[q][1] * u[q][0] + g[q][0] * u[q][1]))
+            .sum();
+        let s2 = SIGMA[0].powi(2) + SIGMA[k].powi(2);
+        let vxx: f64 = (0..3).map(|q| s2 * g[q][0].powi(2)).sum();
+        let vyy: f64 = (0..3).map(|q| s2 * g[q][1].powi(2)).sum();
+        let vxy: f64 = (0..3)
+            .map(|q| s2 * (g[q][0].powi(2) + g[q][1].powi(2)) / 4.0)
+            .sum();
+        want.push((
+            EPOCHS[k].2,
+            [exx, eyy, exy],
+            [vxx.sqrt(), vyy.sqrt(), vxy.sqrt()],
+        ));
+    }
+    let cum = rows(&doc, "cumulative");
+    for (k, (_, e, sd)) in want.iter().enumerate() {
+        let row = cum
+            .iter()
+            .find(|r| r["epoch"] == EPOCHS[k + 1].0)
+            .expect("epoch row");
+        for (c, name) in ["exx", "eyy", "exy"].iter().enumerate() {
+            close(num(row, &format!("{name}_strain")), e[c], 1e-12, name);
+            close(
+                num(row, &format!("sd_{name}_strain")),
+                sd[c],
+                1e-9 * sd[c],
+                &format!("sd_{name}"),
+            );
+        }
+    }
+    let b0 = cum.iter().find(|r| r["epoch"] == "S0").expect("baseline");
+    assert_eq!(
+        num(b0, "sd_exx_strain"),
+        0.0,
+        "baseline sd is 0 by construction"
+    );
+    // Weighted least squares with w = 1/σ², the baseline left out, intercept free:
+    // b = Σw(t−t̄)(y−ȳ)/Σw(t−t̄)², var b = σ̂₀²/Σw(t−t̄)², σ̂₀² = Σw r²/(n−2).
+    // Source: Draper & Smith, Applied Regression Analysis, 3rd ed., weighted least
+    // squares (§9.2 from memory).
+    for (c, name) in ["exx", "eyy", "exy"].iter().enumerate() {
+        let w: Vec<f64> = want.iter().map(|x| 1.0 / x.2[c].powi(2)).collect();
+        let sw: f64 = w.iter().sum();
+        let tm = want.iter().zip(&w).map(|(x, w)| w * x.0).sum::<f64>() / sw;
+        let ym = want.iter().zip(&w).map(|(x, w)| w * x.1[c]).sum::<f64>() / sw;
+        let stt: f64 = want
+            .iter()
+            .zip(&w)
+            .map(|(x, w)| w * (x.0 - tm).powi(2))
+            .sum();
+        let sty: f64 = want
+            .iter()
+            .zip(&w)
+            .map(|(x, w)| w * (x.0 - tm) * (x.1[c] - ym))
+            .sum();
+        let b = sty / stt;
+        let s0: f64 = want
+            .iter()
+            .zip(&w)
+            .map(|(x, w)| w * (x.1[c] - ym - b * (x.0 - tm)).powi(2))
+            .sum::<f64>()
+            / (want.len() - 2) as f64;
+        let row = rows(&doc, "rates")
+            .iter()
+            .find(|r| r["component"] == *name)
+            .expect("rate row");
+        assert_eq!(row["weighted"], true, "{row}");
+        assert_eq!(row["n_epochs"], 4, "baseline left out");
+        close(num(row, "per_day_strain"), b, 1e-9 * b.abs(), name);
+        let sd = (s0 / stt).sqrt();
+        close(num(row, "sd_per_day_strain"), sd, 1e-8 * sd, name);
+    }
+}
+
+/// `n` disjoint equilateral-ish triangles 10 m apart with side 8 m, and their elements.
+fn triangles(n: usize) -> (Vec<(String, [f64; 2])>, String) {
+    let mut pts = Vec::new();
+    let mut el = String::from("element_id,v0,v1,v2\n");
+    for i in 0..n {
+        let o = [10.0 * (i % 10) as f64, 10.0 * (i / 10) as f64];
+        let ids = [format!("P{i}a"), format!("P{i}b"), format!("P{i}c")];
+        pts.push((ids[0].clone(), o));
+        pts.push((ids[1].clone(), [o[0] + 8.0, o[1]]));
+        pts.push((ids[2].clone(), [o[0] + 4.0, o[1] + 7.0]));
+        el.push_str(&format!("T{i},{},{},{}\n", ids[0], ids[1], ids[2]));
+    }
+    (pts, el)
+}
+
+/// Two epochs (10 days apart) of the triangles with noise of σ = 2 mm per axis and a
+/// strain `exx` added at the second epoch; the `increments` rows.
+fn noise_increments(seed: u64, n: usize, exx: f64) -> Vec<Value> {
+    let sigma = 0.002;
+    let (pts, el) = triangles(n);
+    let mut rng = Normal(seed);
+    let mut t = String::from("epoch,time,id,x,y,sigma_x,sigma_y\n");
+    for (label, time, e) in [
+        ("N0", "2026-05-01T00:00:00Z", 0.0),
+        ("N1", "2026-05-11T00:00:00Z", exx),
+    ] {
+        for (id, x) in &pts {
+            t.push_str(&format!(
+                "{label},{time},{id},{:?},{:?},{sigma},{sigma}\n",
+                x[0] * (1.0 + e) + sigma * rng.next(),
+                x[1] + sigma * rng.next()
+            ));
+        }
+    }
+    let dir = tempfile::tempdir().expect("dir");
+    let e = write(&dir, "epochs.csv", &t);
+    let el = write(&dir, "el.csv", &el);
+    let doc = json(&[s(&e), "--series", "--baseline", "N0", "--elements", s(&el)]);
+    rows(&doc, "increments").clone()
+}
+
+#[test]
+fn a_noise_increment_is_significant_at_the_rate_alpha_and_a_real_one_always() {
+    // Under H0 the test rejects with probability alpha = 0.05 (default --alpha); the
+    // count over N independent triangles is Binomial(N, 0.05) (the χ² statistic of the
+    // a-priori test is exactly χ²(3) for normal noise: Koch, Parameter Estimation and
+    // Hypothesis Testing in Linear Models, the general linear hypothesis). 4 seeds × 100
+    // triangles: mean 20, sd sqrt(400·0.05·0.95) = 4.36; accept mean ± 4 sd.
+    let mut rejected = 0;
+    let mut total = 0;
+    for seed in 1..=4 {
+        for row in noise_increments(seed, 100, 0.0) {
+            assert_eq!(row["strain_test"], "chi2(3)", "{row}");
+            let p = num(&row, "strain_p_value");
+            assert!((0.0..=1.0).contains(&p));
+            assert_eq!(row["strain_significant"], p < 0.05);
+            rejected += usize::from(p < 0.05);
+            total += 1;
+        }
+    }
+    assert_eq!(total, 400);
+    eprintln!("noise increments rejected: {rejected} of {total}");
+    assert!((3..=37).contains(&rejected), "{rejected} of 400 rejected");
+    // A real increment: exx = 1e-2 stretches the 8 m side by 80 mm, 40 times the
+    // stated 2 mm; the change is found every time.
+    for row in noise_increments(99, 20, 1.0e-2) {
+        assert_eq!(row["strain_significant"], true, "{row}");
+        assert!(num(&row, "strain_p_value") < 1e-6, "{row}");
+    }
+}
+
+#[test]
+fn precision_columns_are_empty_without_sigma() {
+    let dir = tempfile::tempdir().expect("dir");
+    let e = write(&dir, "epochs.csv", &epochs_csv(linear, None));
+    let el = write(&dir, "el.csv", ELEMENTS);
+    let doc = json(&[s(&e), "--series", "--baseline", "S0", "--elements", s(&el)]);
+    for row in rows(&doc, "cumulative") {
+        for c in [
+            "sd_exx_microstrain",
+            "sd_eyy_microstrain",
+            "sd_exy_microstrain",
+        ] {
+            assert!(row[c].is_null(), "{c} in {row}");
+        }
+    }
+    for row in rows(&doc, "increments") {
+        for c in [
+            "strain_test",
+            "strain_test_statistic",
+            "strain_p_value",
+            "strain_significant",
+        ] {
+            assert!(row[c].is_null(), "{c} in {row}");
+        }
+    }
+    for row in rows(&doc, "rates") {
+        assert_eq!(row["weighted"], false, "{row}");
+        assert_eq!(row["n_epochs"], 5, "baseline included when unweighted");
+    }
+}

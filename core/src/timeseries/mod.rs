@@ -33,9 +33,18 @@
 //!   is given per day and per Julian year (365.25 days), with its standard deviation
 //!   from the residuals when at least three epochs are available. Weights are equal
 //!   unless the caller gives per-epoch strain standard deviations
-//!   ([`RateWeighting::Given`]). The epochs share the baseline measurement, so their
-//!   cumulative strains are correlated; the regression ignores that correlation. A
-//!   region available at fewer than two epochs has no rate ([`Rate::TooFewEpochs`]).
+//!   ([`RateWeighting::Given`]) or asks for them to be propagated from the points'
+//!   stated precision ([`RateWeighting::Precision`], weights `1/σ²` from
+//!   [`EpochStrain::strain_std`]). The epochs share the baseline measurement: its
+//!   error enters every cumulative strain as the same constant offset (the estimators
+//!   are linear in `u`). Under [`RateWeighting::Precision`] the baseline's zero is
+//!   therefore left out and the intercept is free, which absorbs that offset exactly
+//!   when the weights of the estimator do not change between epochs; with equal or
+//!   given weights the baseline is included and the correlation is ignored. A region
+//!   available at fewer than two epochs has no rate ([`Rate::TooFewEpochs`]).
+//! - the test of each increment against "no strain change" ([`Increment::test`]),
+//!   from an estimate of the displacement between the two epochs themselves, whose
+//!   precision combines only those two measurements.
 //!
 //! ## Missing points
 //! A point not measured at an epoch (or at the baseline) excludes exactly the regions

@@ -4,7 +4,7 @@
 
 use std::collections::{HashMap, HashSet};
 
-use nalgebra::SMatrix;
+use nalgebra::{DMatrix, SMatrix};
 use serde::Serialize;
 
 use super::epochs::{DAYS_PER_JULIAN_YEAR, Epoch, EpochPoint, SECONDS_PER_DAY};
@@ -16,6 +16,8 @@ use crate::estimate::lsq::{FitOptions, Group, fit_groups};
 use crate::estimate::quality::QualityThresholds;
 use crate::estimate::{GradientEstimate, RegionKind};
 use crate::points::{Point, PointSet};
+use crate::significance::{DeformationParameters, TestResult, VarianceFactor, test_zero_strain};
+use crate::uncertainty::element::element_gradient_covariance_from_points;
 
 /// Names of the small-strain components in the order of every strain vector of this
 /// module: 2D `exx, eyy, exy`; 3D `exx, eyy, ezz, exy, eyz, exz`. The off-diagonal
@@ -118,6 +120,16 @@ pub enum RateWeighting {
     /// computed at (the baseline too, whose cumulative strain is 0 by definition)
     /// needs an entry. The groups' [`EpochStrain::strain_std`] can serve as input.
     Given(Vec<StrainSigma>),
+    /// Weights `1/σ²` from the propagated a-priori standard deviation of each epoch's
+    /// cumulative strain ([`EpochStrain::strain_std`]), computed inside the series from
+    /// the points' stated precision. The baseline is left out of the regression and the
+    /// intercept is free: its cumulative strain is zero by construction, and the
+    /// baseline's measurement error enters every other epoch as the same constant offset
+    /// (the estimators are linear in `u`), which the free intercept absorbs. A region
+    /// without a standard deviation at some epoch after the baseline, or with fewer than
+    /// two such epochs, falls back to equal weights with the baseline included
+    /// ([`RegionRate::weighted`] false).
+    Precision,
 }
 
 /// Options of [`strain_series`].
@@ -130,6 +142,12 @@ pub struct SeriesOptions {
     pub thermal: Option<ThermalCompensation>,
     /// Weights of the rate regression.
     pub weighting: RateWeighting,
+    /// Significance level of the test of each increment ([`Increment::test`]),
+    /// `0 < alpha < 1`.
+    pub alpha: f64,
+    /// Test group increments with χ² and the a-priori variance factor 1 of the stated
+    /// precision instead of F with the fit's estimated factor (elements always use χ²).
+    pub trust_apriori: bool,
 }
 
 impl SeriesOptions {
@@ -139,6 +157,8 @@ impl SeriesOptions {
             baseline: baseline.into(),
             thermal: None,
             weighting: RateWeighting::Equal,
+            alpha: 0.05,
+            trust_apriori: false,
         }
     }
 }
@@ -164,11 +184,18 @@ pub struct EpochStrain<const D: usize> {
     /// Cumulative strain with the free thermal strain removed from the normal
     /// components (shear unchanged); `None` without compensation.
     pub compensated: Option<Vec<f64>>,
-    /// Standard deviation of each strain component from the least-squares fit's
-    /// `cov_gradient` (groups only; elements carry no covariance): `var(e_ii) =
-    /// C[ii,ii]`, `var(e_ij) = (C[ij,ij] + C[ji,ji] + 2·C[ij,ji])/4` with row-major
-    /// `vec(G)` indices. The fit scales it by its a-posteriori variance factor, so it is
-    /// 0 at the baseline (zero displacement, zero residuals).
+    /// A-priori standard deviation of each cumulative strain component (dimensionless,
+    /// [`strain_component_names`] order), propagated from the stated precision of the
+    /// displacements (`sqrt(σ_baseline² + σ_k²)` per axis, variance factor 1):
+    /// elements through the shape functions
+    /// ([`element_gradient_covariance_from_points`]); groups from the fit's
+    /// `cov_gradient` divided by its a-posteriori variance factor (an exact fit's
+    /// covariance already carries factor 1). With `C` = covariance of row-major
+    /// `vec(G)`: `var(e_ii) = C[ii,ii]`, `var(e_ij) = (C[ij,ij] + C[ji,ji] + 2·C[ij,ji])/4`.
+    /// Exactly 0 at the baseline (its cumulative strain is zero by construction).
+    /// `None` when some point of the region states no precision, when a group is fitted
+    /// without precision weights, or for a group whose fit has zero residuals (no
+    /// variance factor to remove).
     pub strain_std: Option<Vec<f64>>,
 }
 
@@ -187,6 +214,19 @@ pub struct Increment {
     pub rotation: Vec<f64>,
     /// Compensated strain increment; `None` without compensation.
     pub compensated: Option<Vec<f64>>,
+    /// Test of H0 "no strain change" at [`SeriesOptions::alpha`], on the strain
+    /// components only. The increment is estimated directly from the displacement
+    /// between the two epochs, `x_to − x_from`, on the baseline geometry, with the
+    /// precision `sqrt(σ_from² + σ_to²)` per axis; so it involves only those two
+    /// measurements and no correlation through the shared baseline arises. Elements
+    /// (and exact group fits, or every group with [`SeriesOptions::trust_apriori`]): χ²
+    /// with the a-priori variance factor 1 trusted; other groups with redundancy: F with
+    /// the fit's estimated factor. For elements the estimate
+    /// equals [`Self::strain`]; for groups it can differ slightly when the stated
+    /// precision changes between epochs (other weights). `None` when a point of the
+    /// region states no precision at either epoch, a group is fitted without precision
+    /// weights, or a group fit has zero residuals.
+    pub test: Option<TestResult>,
 }
 
 /// Rate of one strain component.
@@ -210,12 +250,16 @@ pub struct ComponentRate {
 /// Rates of all components of one region.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct RegionRate {
-    /// Number of epochs in the regression (the baseline included).
+    /// Number of epochs in the regression (see [`Self::includes_baseline`]).
     pub n_epochs: usize,
     /// Residual degrees of freedom `n_epochs − 2`.
     pub dof: usize,
-    /// True when the weights came from [`RateWeighting::Given`], false for equal weights.
+    /// True when the weights came from [`RateWeighting::Given`] or
+    /// [`RateWeighting::Precision`], false for equal weights.
     pub weighted: bool,
+    /// True when the baseline's zero is one of the `n_epochs` points; false under
+    /// [`RateWeighting::Precision`], which leaves it out with the intercept free.
+    pub includes_baseline: bool,
     /// One rate per component, in [`strain_component_names`] order.
     pub components: Vec<ComponentRate>,
 }
@@ -315,6 +359,7 @@ pub fn strain_series<const D: usize>(
     if epochs.is_empty() {
         return Err(CoreError::Empty { what: "epochs" });
     }
+    crate::significance::distribution::check_alpha("alpha", opts.alpha)?;
     let mut labels = HashSet::with_capacity(epochs.len());
     for (k, e) in epochs.iter().enumerate() {
         e.validate()?;
@@ -447,22 +492,13 @@ pub fn strain_series<const D: usize>(
                 .map(|&(i, j)| 0.5 * (g[(i, j)] + g[(j, i)]))
                 .collect();
             let compensated = thermal.map(|th| compensate::<D>(&strain, th));
-            let strain_std = est.fit.as_ref().map(|f| {
-                let c = &f.cov_gradient;
-                pairs
-                    .iter()
-                    .map(|&(i, j)| {
-                        let a = i * D + j;
-                        let bb = j * D + i;
-                        let v = if i == j {
-                            c[(a, a)]
-                        } else {
-                            (c[(a, a)] + c[(bb, bb)] + 2.0 * c[(a, bb)]) / 4.0
-                        };
-                        v.max(0.0).sqrt()
-                    })
-                    .collect()
-            });
+            let strain_std = if k == b {
+                states_precision(regions, &set, &est).then(|| vec![0.0; pairs.len()])
+            } else {
+                apriori_cov_gradient(regions, &set, &est)
+                    .map_err(|err| e.wrap(err))?
+                    .map(|c| strain_sd::<D>(&c))
+            };
             samples[ri].push(EpochStrain {
                 epoch: e.label.clone(),
                 time_s: e.time_s,
@@ -477,6 +513,7 @@ pub fn strain_series<const D: usize>(
         }
     }
 
+    let by_label: HashMap<&str, &Epoch<D>> = epochs.iter().map(|e| (e.label.as_str(), e)).collect();
     let mut out = Vec::with_capacity(members.len());
     for (ri, s) in samples.into_iter().enumerate() {
         let label = members[ri].0;
@@ -488,9 +525,11 @@ pub fn strain_series<const D: usize>(
             Regions::Elements { .. } => RegionKind::Tetrahedron,
             Regions::Groups { .. } => RegionKind::Group,
         });
-        let increments = s
-            .windows(2)
-            .map(|w| Increment {
+        let mut increments = Vec::with_capacity(s.len().saturating_sub(1));
+        for w in s.windows(2) {
+            let test =
+                increment_test(regions, base, &by_label, ri, &w[0].epoch, &w[1].epoch, opts)?;
+            increments.push(Increment {
                 from: w[0].epoch.clone(),
                 to: w[1].epoch.clone(),
                 dt_days: w[1].days_from_baseline - w[0].days_from_baseline,
@@ -500,9 +539,14 @@ pub fn strain_series<const D: usize>(
                     (Some(a), Some(c)) => Some(diff(a, c)),
                     _ => None,
                 },
-            })
-            .collect();
-        let sig = given.as_ref().map(|g| (g, label));
+                test,
+            });
+        }
+        let sig = match &given {
+            Some(g) => Weights::Given(g, label),
+            None if opts.weighting == RateWeighting::Precision => Weights::Precision(&base.label),
+            None => Weights::Equal,
+        };
         let rate = region_rate(&s, names, sig, |x| &x.strain)?;
         let rate_compensated = if temps.is_some() {
             Some(region_rate(&s, names, sig, |x| {
@@ -535,10 +579,22 @@ pub fn strain_series<const D: usize>(
 /// Points measured at both the baseline and epoch `e`, in baseline order, with
 /// `x` = baseline position, `u` = epoch − baseline and the combined sigma.
 fn displacement_set<const D: usize>(base: &Epoch<D>, e: &Epoch<D>) -> Result<PointSet<D>> {
+    displacement_between(base, base, e)
+}
+
+/// Points measured at `base`, `from` and `to`, in baseline order, with `x` = baseline
+/// position, `u = x_to − x_from` and the combined sigma of `from` and `to`.
+fn displacement_between<const D: usize>(
+    base: &Epoch<D>,
+    from: &Epoch<D>,
+    e: &Epoch<D>,
+) -> Result<PointSet<D>> {
     let now: HashMap<&str, &EpochPoint<D>> = e.points.iter().map(|p| (p.id.as_str(), p)).collect();
+    let then: HashMap<&str, &EpochPoint<D>> =
+        from.points.iter().map(|p| (p.id.as_str(), p)).collect();
     let mut pts = Vec::with_capacity(base.points.len());
-    for pb in &base.points {
-        let Some(pe) = now.get(pb.id.as_str()) else {
+    for p0 in &base.points {
+        let (Some(pe), Some(pb)) = (now.get(p0.id.as_str()), then.get(p0.id.as_str())) else {
             continue;
         };
         let mut u = [0.0; D];
@@ -556,8 +612,8 @@ fn displacement_set<const D: usize>(base: &Epoch<D>, e: &Epoch<D>) -> Result<Poi
             _ => None,
         };
         pts.push(Point {
-            id: pb.id.clone(),
-            x: pb.x,
+            id: p0.id.clone(),
+            x: p0.x,
             u,
             sigma,
             cov: None,
@@ -666,23 +722,55 @@ fn given_sigmas<const D: usize>(
     Ok(Some(map))
 }
 
+/// How the rate regression of one region is weighted.
+#[derive(Clone, Copy)]
+enum Weights<'a> {
+    /// Weight 1, the baseline included.
+    Equal,
+    /// Given standard deviations for `(region, epoch)`, the baseline included.
+    Given(&'a SigmaMap, &'a str),
+    /// [`EpochStrain::strain_std`], the baseline (label) left out, intercept free.
+    Precision(&'a str),
+}
+
 /// Rates of every component of one region from its samples; `value` picks the
 /// uncompensated or compensated strain vector.
 fn region_rate<const D: usize>(
     samples: &[EpochStrain<D>],
     names: &'static [&'static str],
-    given: Option<(&SigmaMap, &str)>,
+    weights: Weights<'_>,
     value: impl Fn(&EpochStrain<D>) -> &Vec<f64>,
 ) -> Result<Rate> {
+    if let Weights::Precision(baseline) = weights {
+        let after: Vec<&EpochStrain<D>> = samples.iter().filter(|s| s.epoch != baseline).collect();
+        let sig: Option<Vec<&Vec<f64>>> = after
+            .iter()
+            .map(|s| {
+                s.strain_std
+                    .as_ref()
+                    .filter(|v| v.iter().all(|x| x.is_finite() && *x > 0.0))
+            })
+            .collect();
+        if let Some(sig) = sig.filter(|_| after.len() >= 2) {
+            let t: Vec<f64> = after.iter().map(|s| s.days_from_baseline).collect();
+            let ys: Vec<Vec<f64>> = (0..names.len())
+                .map(|c| after.iter().map(|s| value(s)[c]).collect())
+                .collect();
+            let sc: Vec<Vec<f64>> = (0..names.len())
+                .map(|c| sig.iter().map(|s| s[c]).collect())
+                .collect();
+            return fit_components(names, &t, &ys, Some(&sc), false);
+        }
+    }
     if samples.len() < 2 {
         return Ok(Rate::TooFewEpochs {
             available: samples.len(),
         });
     }
     let t: Vec<f64> = samples.iter().map(|s| s.days_from_baseline).collect();
-    let sig: Option<Vec<&Vec<f64>>> = match given {
-        None => None,
-        Some((map, region)) => Some(
+    let sig: Option<Vec<&Vec<f64>>> = match weights {
+        Weights::Equal | Weights::Precision(_) => None,
+        Weights::Given(map, region) => Some(
             samples
                 .iter()
                 .map(|s| {
@@ -698,12 +786,31 @@ fn region_rate<const D: usize>(
                 .collect::<Result<_>>()?,
         ),
     };
+    let ys: Vec<Vec<f64>> = (0..names.len())
+        .map(|c| samples.iter().map(|s| value(s)[c]).collect())
+        .collect();
+    let sc: Option<Vec<Vec<f64>>> = sig.map(|v| {
+        (0..names.len())
+            .map(|c| v.iter().map(|s| s[c]).collect())
+            .collect()
+    });
+    fit_components(names, &t, &ys, sc.as_deref(), true)
+}
+
+/// One weighted slope per component: `ys[c]` the values, `sigma[c]` their standard
+/// deviations (or equal weights).
+fn fit_components(
+    names: &'static [&'static str],
+    t: &[f64],
+    ys: &[Vec<f64>],
+    sigma: Option<&[Vec<f64>]>,
+    includes_baseline: bool,
+) -> Result<Rate> {
     let mut components = Vec::with_capacity(names.len());
     let mut dof = 0;
     for (c, &name) in names.iter().enumerate() {
-        let y: Vec<f64> = samples.iter().map(|s| value(s)[c]).collect();
-        let sc: Option<Vec<f64>> = sig.as_ref().map(|v| v.iter().map(|s| s[c]).collect());
-        let fit = weighted_slope(&t, &y, sc.as_deref()).map_err(|e| match e {
+        let sc = sigma.map(|s| s[c].as_slice());
+        let fit = weighted_slope(t, &ys[c], sc).map_err(|e| match e {
             CoreError::InvalidParameter { name: n, reason } => CoreError::InvalidParameter {
                 name: n,
                 reason: format!("rate of `{name}`: {reason}"),
@@ -721,9 +828,122 @@ fn region_rate<const D: usize>(
         });
     }
     Ok(Rate::Estimated(RegionRate {
-        n_epochs: samples.len(),
+        n_epochs: t.len(),
         dof,
-        weighted: sig.is_some(),
+        weighted: sigma.is_some(),
+        includes_baseline,
         components,
     }))
+}
+
+/// Standard deviations of the strain components from the covariance `c` of row-major
+/// `vec(G)` (see [`EpochStrain::strain_std`]).
+fn strain_sd<const D: usize>(c: &DMatrix<f64>) -> Vec<f64> {
+    component_pairs::<D>()
+        .iter()
+        .map(|&(i, j)| {
+            let a = i * D + j;
+            let bb = j * D + i;
+            let v = if i == j {
+                c[(a, a)]
+            } else {
+                (c[(a, a)] + c[(bb, bb)] + 2.0 * c[(a, bb)]) / 4.0
+            };
+            v.max(0.0).sqrt()
+        })
+        .collect()
+}
+
+/// True when every point of the estimate states a precision and, for groups, the fit
+/// weights by it.
+fn states_precision<const D: usize>(
+    regions: &Regions,
+    set: &PointSet<D>,
+    est: &GradientEstimate<D>,
+) -> bool {
+    let pts = set.points();
+    let all = est
+        .members
+        .iter()
+        .all(|&m| pts.get(m).is_some_and(|p| p.covariance().is_some()));
+    match regions {
+        Regions::Elements { .. } => all,
+        Regions::Groups { options, .. } => all && options.use_precision,
+    }
+}
+
+/// A-priori covariance of `vec(G)` (variance factor 1) of an estimate on `set`, or
+/// `None` when it is not available (see [`EpochStrain::strain_std`]).
+fn apriori_cov_gradient<const D: usize>(
+    regions: &Regions,
+    set: &PointSet<D>,
+    est: &GradientEstimate<D>,
+) -> Result<Option<DMatrix<f64>>> {
+    if !states_precision(regions, set, est) {
+        return Ok(None);
+    }
+    match regions {
+        Regions::Elements { .. } => element_gradient_covariance_from_points(set, &est.members),
+        Regions::Groups { .. } => Ok(est.fit.as_ref().and_then(|f| {
+            if f.exact {
+                Some(f.cov_gradient.clone())
+            } else {
+                f.variance_factor
+                    .filter(|v| v.is_finite() && *v > 0.0)
+                    .map(|v| &f.cov_gradient / v)
+            }
+        })),
+    }
+}
+
+/// The test of H0 "no strain change" of region `ri` between epochs `from` and `to`
+/// (see [`Increment::test`]).
+fn increment_test<const D: usize>(
+    regions: &Regions,
+    base: &Epoch<D>,
+    by_label: &HashMap<&str, &Epoch<D>>,
+    ri: usize,
+    from: &str,
+    to: &str,
+    opts: &SeriesOptions,
+) -> Result<Option<TestResult>> {
+    let (Some(ea), Some(eb)) = (by_label.get(from), by_label.get(to)) else {
+        return Ok(None);
+    };
+    let set = displacement_between(base, ea, eb)?;
+    let (acc, _) = estimate(regions, &set, &[ri]).map_err(|err| eb.wrap(err))?;
+    let Some(est) = acc.into_iter().next() else {
+        return Ok(None);
+    };
+    if !states_precision(regions, &set, &est) {
+        return Ok(None);
+    }
+    let params = match regions {
+        Regions::Elements { .. } => {
+            let Some(cov) = element_gradient_covariance_from_points(&set, &est.members)? else {
+                return Ok(None);
+            };
+            DeformationParameters::from_gradient(
+                &est.gradient,
+                &cov,
+                VarianceFactor::Apriori { sigma0_sq: 1.0 },
+            )?
+        }
+        Regions::Groups { .. } => {
+            let Some(fit) = &est.fit else {
+                return Ok(None);
+            };
+            if opts.trust_apriori || fit.exact || fit.redundancy == 0 {
+                DeformationParameters::from_estimate(&est, Some(1.0))?
+            } else if fit
+                .variance_factor
+                .is_some_and(|v| v.is_finite() && v > 0.0)
+            {
+                DeformationParameters::from_estimate(&est, None)?
+            } else {
+                return Ok(None);
+            }
+        }
+    };
+    test_zero_strain(&params, opts.alpha).map(Some)
 }

@@ -282,7 +282,15 @@ pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliErro
         }
         None => p.push(("thermal_alpha_per_k".into(), Cell::Text("none".into()))),
     }
-    p.push(("rate_weighting".into(), Cell::Text("equal".into())));
+    p.push((
+        "rate_weighting".into(),
+        Cell::Text(
+            "1/sd^2 from the stated precision, baseline left out, intercept free, where every \
+             point of a region states sigma (see `weighted`); else equal weights"
+                .into(),
+        ),
+    ));
+    p.push(("increment_test_alpha".into(), Cell::Num(a.alpha)));
     p.push((
         "days_per_year".into(),
         Cell::Num(kinema_core::timeseries::DAYS_PER_JULIAN_YEAR),
@@ -296,7 +304,9 @@ pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliErro
         options: SeriesOptions {
             baseline,
             thermal: thermal.map(|(th, _)| th),
-            weighting: RateWeighting::Equal,
+            weighting: RateWeighting::Precision,
+            alpha: a.alpha,
+            trust_apriori: a.trust_apriori,
         },
         units: Units {
             length: unit,
@@ -391,6 +401,19 @@ where
             c.push(Column::new(n, s, m));
         }
     }
+    let sd: &[&str] = if D == 2 {
+        &["sd_exx", "sd_eyy", "sd_exy"]
+    } else {
+        &["sd_exx", "sd_eyy", "sd_ezz", "sd_exy", "sd_eyz", "sd_exz"]
+    };
+    for n in sd {
+        c.push(Column::new(
+            n,
+            s,
+            "a-priori standard deviation of the cumulative strain component, propagated \
+             from the stated sigmas (0 at the baseline; empty without stated precision)",
+        ));
+    }
     c
 }
 
@@ -420,6 +443,22 @@ fn increment_columns<const D: usize>(u: Units, thermal: bool) -> Vec<Column> {
             c.push(Column::new(n, s, m));
         }
     }
+    c.extend([
+        Column::new(
+            "strain_test",
+            "",
+            "test of H0 no strain change on the strain components of the displacement \
+             between the two epochs: chi2(m) with the a-priori variance factor trusted, \
+             F(m, r) with it estimated (empty without stated precision)",
+        ),
+        Column::new("strain_test_statistic", "", "the test statistic"),
+        Column::new("strain_p_value", "", "P(X > statistic) under H0"),
+        Column::new(
+            "strain_significant",
+            "",
+            "true when strain_p_value < alpha (parameter increment_test_alpha)",
+        ),
+    ]);
     c
 }
 
@@ -440,13 +479,13 @@ fn rate_columns(u: Units) -> Vec<Column> {
         Column::new(
             "per_day",
             s,
-            "rate per day: least-squares slope of the cumulative strain against time",
+            "rate per day: (weighted) least-squares slope of the cumulative strain against time",
         ),
         Column::new("per_year", s, "rate per Julian year (365.25 days)"),
         Column::new(
             "sd_per_day",
             s,
-            "standard deviation of the rate per day, from the scatter about the line (empty with fewer than 3 epochs)",
+            "standard deviation of the rate per day, from the scatter about the line scaled by the weights; with 2 epochs, from the weights alone when weighted (empty when unweighted)",
         ),
         Column::new(
             "sd_per_year",
@@ -456,13 +495,13 @@ fn rate_columns(u: Units) -> Vec<Column> {
         Column::new(
             "n_epochs",
             "",
-            "epochs in the regression, the baseline included",
+            "epochs in the regression: the baseline included when unweighted, left out when weighted",
         ),
         Column::new("dof", "", "residual degrees of freedom n_epochs - 2"),
         Column::new(
             "weighted",
             "",
-            "false: every epoch has weight 1 (equal weights)",
+            "true: weights 1/sd^2 from the stated precision, baseline left out, intercept free; false: every epoch has weight 1",
         ),
         Column::new("note", "", "why there is no rate, if there is none"),
     ]
@@ -585,6 +624,10 @@ where
                 row.push(s(th));
                 row.extend(comp[..D].iter().map(|v| s(*v)));
             }
+            match &smp.strain_std {
+                Some(sd) => row.extend(sd.iter().map(|v| s(*v))),
+                None => row.extend(names.iter().map(|_| Cell::Empty)),
+            }
             out.cumulative.push(row);
         }
         for inc in &reg.increments {
@@ -603,6 +646,18 @@ where
             row.extend(inc.rotation.iter().map(|w| Cell::Num(w.to_degrees())));
             if let Some(c) = &inc.compensated {
                 row.extend(c[..D].iter().map(|v| s(*v)));
+            }
+            match &inc.test {
+                Some(t) => row.extend([
+                    Cell::Text(match t.dof2 {
+                        Some(r) => format!("F({}, {r})", t.dof1),
+                        None => format!("chi2({})", t.dof1),
+                    }),
+                    Cell::Num(t.statistic),
+                    Cell::Num(t.p_value),
+                    Cell::Bool(t.significant),
+                ]),
+                None => row.extend([Cell::Empty, Cell::Empty, Cell::Empty, Cell::Empty]),
             }
             out.increments.push(row);
         }
@@ -757,13 +812,26 @@ fn notes<const D: usize>(
         series.regions.len()
     ));
     n.push(
-        "rates: unweighted least-squares slope of each cumulative strain component against \
-         time (the baseline's zero included), per day and per Julian year of 365.25 days; \
-         its standard deviation comes from the scatter about the line and needs at least 3 \
-         epochs. The epochs share the baseline measurement, a correlation the regression \
-         ignores."
+        "rates: least-squares slope of each cumulative strain component against time, per \
+         day and per Julian year of 365.25 days. Where every point of a region states sigma \
+         (weighted = true) the weights are 1/sd^2 of the propagated a-priori standard \
+         deviations (sd_ columns of `cumulative`), the baseline's zero is left out and the \
+         intercept is free: the baseline's measurement error is then one common offset of \
+         every later value, absorbed by the intercept. Otherwise (weighted = false) every \
+         epoch has weight 1, the baseline's zero included, and the correlation through the \
+         shared baseline is ignored. The standard deviation of the rate comes from the \
+         scatter about the line (at least 3 points)."
             .into(),
     );
+    n.push(format!(
+        "increments: strain_test tests H0 no strain change at alpha = {} on the strain \
+         components only, from the displacement between the two epochs themselves (its \
+         precision combines those two measurements, so the shared baseline plays no part); \
+         elements use chi2 with the a-priori variance factor 1, groups F with the fit's \
+         estimated factor unless --trust-apriori. A statistical decision on kinematic \
+         estimates, not a structural assessment.",
+        req.options.alpha
+    ));
     if let Some(th) = &req.options.thermal {
         n.push(format!(
             "temperature compensation: free thermal strain alpha*(T - T_baseline) with alpha = \
@@ -799,16 +867,17 @@ mod tests {
         };
         // 2D: 4 leading columns, the 20 strain columns of columns2 after its 4
         // region columns, and 2 + 2 + D thermal columns.
+        // Then one sd_ column per strain component, and 4 test columns per increment.
         assert_eq!(
             cumulative_columns::<2>(u, false).len(),
-            4 + output_strain_width::<2>(u)
+            4 + output_strain_width::<2>(u) + 3
         );
         assert_eq!(
             cumulative_columns::<3>(u, true).len(),
-            4 + output_strain_width::<3>(u) + 2 + 3
+            4 + output_strain_width::<3>(u) + 2 + 3 + 6
         );
-        assert_eq!(increment_columns::<2>(u, false).len(), 4 + 3 + 1 + 1);
-        assert_eq!(increment_columns::<3>(u, true).len(), 4 + 6 + 3 + 3 + 3);
+        assert_eq!(increment_columns::<2>(u, false).len(), 4 + 3 + 1 + 1 + 4);
+        assert_eq!(increment_columns::<3>(u, true).len(), 4 + 6 + 3 + 3 + 3 + 4);
     }
 
     fn output_strain_width<const D: usize>(u: Units) -> usize
