@@ -151,13 +151,18 @@ fn linear_growth_gives_exact_rates_and_increments() {
     for row in r {
         let comp = row["component"].as_str().expect("component");
         let want = rate.iter().find(|(n, _)| *n == comp).expect("known").1;
-        close(num(row, "per_day_strain"), want, 1e-15, comp);
+        close(num(row, "rate_strain_per_day"), want, 1e-15, comp);
         // Julian year = 365.25 days (IAU definition of the Julian year).
-        close(num(row, "per_year_strain"), 365.25 * want, 365.25e-15, comp);
+        close(
+            num(row, "rate_strain_per_year"),
+            365.25 * want,
+            365.25e-15,
+            comp,
+        );
         assert_eq!(row["n_epochs"], 5);
         assert_eq!(row["weighted"], false);
         // Exact data: no scatter about the line.
-        assert!(num(row, "sd_per_day_strain") < 1e-15, "{row}");
+        assert!(num(row, "sd_rate_strain_per_day") < 1e-15, "{row}");
     }
     let inc = rows(&doc, "increments");
     assert_eq!(inc.len(), 2 * 4);
@@ -303,7 +308,12 @@ fn free_thermal_expansion_compensates_to_zero() {
         }
         for row in rows(&doc, "rates") {
             if row["compensated"] == true {
-                close(num(row, "per_day_strain"), 0.0, 1e-16, "compensated rate");
+                close(
+                    num(row, "rate_strain_per_day"),
+                    0.0,
+                    1e-16,
+                    "compensated rate",
+                );
             }
         }
         assert_eq!(
@@ -368,7 +378,7 @@ fn json_epochs_in_millimetres_read_like_csv() {
     close(num(&before, "days_from_baseline"), -25.5, 1e-9, "days");
     for row in rows(&doc, "rates") {
         if row["component"] == "exx" {
-            close(num(row, "per_day_strain"), exx_rate, 1e-15, "exx rate");
+            close(num(row, "rate_strain_per_day"), exx_rate, 1e-15, "exx rate");
         }
     }
 }
@@ -637,9 +647,9 @@ fn weighted_rate_matches_the_closed_form_with_stated_sigmas() {
             .expect("rate row");
         assert_eq!(row["weighted"], true, "{row}");
         assert_eq!(row["n_epochs"], 4, "baseline left out");
-        close(num(row, "per_day_strain"), b, 1e-9 * b.abs(), name);
+        close(num(row, "rate_strain_per_day"), b, 1e-9 * b.abs(), name);
         let sd = (s0 / stt).sqrt();
-        close(num(row, "sd_per_day_strain"), sd, 1e-8 * sd, name);
+        close(num(row, "sd_rate_strain_per_day"), sd, 1e-8 * sd, name);
     }
 }
 

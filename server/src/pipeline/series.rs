@@ -49,6 +49,7 @@ use crate::input::{
     EpochSeries, ReadOptions, format_rfc3339, read_elements, read_epochs, read_groups,
 };
 use crate::output::{self, Cell, Column, Footer, Header, RowSink, Section};
+use crate::units::StrainUnit;
 
 /// Name of the section of cumulative strains.
 pub const CUMULATIVE: &str = "cumulative";
@@ -462,8 +463,16 @@ fn increment_columns<const D: usize>(u: Units, thermal: bool) -> Vec<Column> {
     c
 }
 
+/// Units of a strain rate per day and per Julian year, in the declared strain unit.
+fn rate_units(u: Units) -> (&'static str, &'static str) {
+    match u.strain {
+        StrainUnit::Strain => ("strain_per_day", "strain_per_year"),
+        StrainUnit::Microstrain => ("microstrain_per_day", "microstrain_per_year"),
+    }
+}
+
 fn rate_columns(u: Units) -> Vec<Column> {
-    let s = u.strain.label();
+    let (per_day, per_year) = rate_units(u);
     vec![
         Column::new("region", "", "element ID or group name"),
         Column::new(
@@ -477,19 +486,19 @@ fn rate_columns(u: Units) -> Vec<Column> {
             "true for the rate of the temperature-compensated strain",
         ),
         Column::new(
-            "per_day",
-            s,
+            "rate",
+            per_day,
             "rate per day: (weighted) least-squares slope of the cumulative strain against time",
         ),
-        Column::new("per_year", s, "rate per Julian year (365.25 days)"),
+        Column::new("rate", per_year, "rate per Julian year (365.25 days)"),
         Column::new(
-            "sd_per_day",
-            s,
+            "sd_rate",
+            per_day,
             "standard deviation of the rate per day, from the scatter about the line scaled by the weights; with 2 epochs, from the weights alone when weighted (empty when unweighted)",
         ),
         Column::new(
-            "sd_per_year",
-            s,
+            "sd_rate",
+            per_year,
             "standard deviation of the rate per Julian year",
         ),
         Column::new(
