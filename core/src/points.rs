@@ -293,7 +293,7 @@ impl<const D: usize> PointSet<D> {
 }
 
 /// serde for `[f64; D]` with a const generic `D` (serde's own impls stop at fixed sizes).
-mod serde_arrays {
+pub(crate) mod serde_arrays {
     use serde::de::Error;
     use serde::{Deserialize, Deserializer, Serializer};
 
@@ -311,7 +311,8 @@ mod serde_arrays {
     }
 }
 
-mod serde_opt_arrays {
+/// serde for `Option<[f64; D]>` with a const generic `D`.
+pub(crate) mod serde_opt_arrays {
     use serde::de::Error;
     use serde::{Deserialize, Deserializer, Serializer};
 

@@ -19,11 +19,11 @@ pub struct EpochPoint<const D: usize> {
     /// Point identifier (1–64 chars of `A-Za-z0-9._-`), the same ID in every epoch.
     pub id: String,
     /// Measured coordinates at this epoch, metres, in the structure's frame.
-    #[serde(with = "arrays")]
+    #[serde(with = "crate::points::serde_arrays")]
     pub x: [f64; D],
     /// Standard deviation of each measured coordinate, metres, per axis; `None`
     /// when not stated.
-    #[serde(default, with = "opt_arrays")]
+    #[serde(default, with = "crate::points::serde_opt_arrays")]
     pub sigma: Option<[f64; D]>,
 }
 
@@ -143,54 +143,5 @@ impl<const D: usize> Epoch<D> {
     /// Point IDs of this epoch.
     pub(crate) fn ids(&self) -> HashSet<&str> {
         self.points.iter().map(|p| p.id.as_str()).collect()
-    }
-}
-
-/// serde for `[f64; D]` with a const generic `D`.
-mod arrays {
-    use serde::de::Error;
-    use serde::{Deserialize, Deserializer, Serializer};
-
-    pub fn serialize<S: Serializer, const D: usize>(v: &[f64; D], s: S) -> Result<S::Ok, S::Error> {
-        s.collect_seq(v.iter())
-    }
-
-    pub fn deserialize<'de, De: Deserializer<'de>, const D: usize>(
-        d: De,
-    ) -> Result<[f64; D], De::Error> {
-        let v = Vec::<f64>::deserialize(d)?;
-        let n = v.len();
-        v.try_into()
-            .map_err(|_| De::Error::invalid_length(n, &"one number per axis"))
-    }
-}
-
-/// serde for `Option<[f64; D]>` with a const generic `D`.
-mod opt_arrays {
-    use serde::de::Error;
-    use serde::{Deserialize, Deserializer, Serializer};
-
-    pub fn serialize<S: Serializer, const D: usize>(
-        v: &Option<[f64; D]>,
-        s: S,
-    ) -> Result<S::Ok, S::Error> {
-        match v {
-            Some(a) => s.collect_seq(a.iter()),
-            None => s.serialize_none(),
-        }
-    }
-
-    pub fn deserialize<'de, De: Deserializer<'de>, const D: usize>(
-        d: De,
-    ) -> Result<Option<[f64; D]>, De::Error> {
-        match Option::<Vec<f64>>::deserialize(d)? {
-            None => Ok(None),
-            Some(v) => {
-                let n = v.len();
-                v.try_into()
-                    .map(Some)
-                    .map_err(|_| De::Error::invalid_length(n, &"one number per axis"))
-            }
-        }
     }
 }
