@@ -11,7 +11,7 @@ use kinema_core::points::{validate_cov, validate_id};
 use kinema_core::uncertainty::covariance::displacement_covariance;
 use kinema_core::{CoreError, Point};
 
-use super::error::{InputError, excerpt};
+use super::error::{InputError, csv_error, excerpt, finite_field};
 use super::{Parsed, Points, to_square_metres};
 use crate::units::LengthUnit;
 
@@ -180,21 +180,6 @@ fn locate_duplicate(file: &Path, path: &str, id_col: usize, id: String) -> Input
             path: path.to_owned(),
             source: CoreError::DuplicatePoint { id },
         },
-    }
-}
-
-fn csv_error(path: &str, e: &csv::Error) -> InputError {
-    let line = e.position().map(csv::Position::line).unwrap_or(0);
-    if let csv::ErrorKind::Io(io) = e.kind() {
-        return InputError::Io {
-            path: path.to_owned(),
-            source: std::io::Error::new(io.kind(), io.to_string()),
-        };
-    }
-    InputError::Csv {
-        path: path.to_owned(),
-        line,
-        message: e.to_string(),
     }
 }
 
@@ -569,21 +554,5 @@ fn number<const D: usize>(
     path: &str,
 ) -> Result<f64, InputError> {
     let s = text(rec, col, line, layout, path)?;
-    match s.parse::<f64>() {
-        Ok(v) if v.is_finite() => Ok(v),
-        Ok(_) => Err(InputError::NonFinite {
-            path: path.to_owned(),
-            line,
-            column: col + 1,
-            name: layout.names[col].clone(),
-            text: excerpt(s),
-        }),
-        Err(_) => Err(InputError::NotANumber {
-            path: path.to_owned(),
-            line,
-            column: col + 1,
-            name: layout.names[col].clone(),
-            text: excerpt(s),
-        }),
-    }
+    finite_field(s, path, line, col + 1, &layout.names[col])
 }

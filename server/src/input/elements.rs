@@ -18,7 +18,7 @@ use csv::{ByteRecord, ReaderBuilder, Trim};
 use kinema_core::points::validate_id;
 use serde::Deserialize;
 
-use super::error::{InputError, excerpt};
+use super::error::{InputError, csv_error, excerpt};
 use super::json_doc::{CheckedSeq, JsonId, parse_document};
 use super::source::{self, Source};
 
@@ -150,14 +150,6 @@ fn parse_csv<R: Read>(reader: R, path: &str) -> Result<Vec<ElementRow>, InputErr
         });
     }
     Ok(out)
-}
-
-pub(super) fn csv_error(path: &str, e: &csv::Error) -> InputError {
-    InputError::Csv {
-        path: path.to_owned(),
-        line: e.position().map(csv::Position::line).unwrap_or(0),
-        message: e.to_string(),
-    }
 }
 
 #[derive(Debug, Deserialize)]

@@ -33,8 +33,7 @@ use kinema_core::timeseries::{Epoch, EpochPoint};
 use serde::Deserialize;
 
 use super::ReadOptions;
-use super::elements::csv_error;
-use super::error::{InputError, excerpt};
+use super::error::{InputError, csv_error, excerpt, finite_field};
 use super::json_doc::{CheckedSeq, JsonId, parse_document};
 use super::source::{self, Source};
 use crate::units::LengthUnit;
@@ -449,24 +448,7 @@ impl CsvContext<'_> {
             };
             let number = |c: usize| -> Result<f64, InputError> {
                 let s = text(c)?;
-                let name = self.name_at(c).to_owned();
-                match s.parse::<f64>() {
-                    Ok(v) if v.is_finite() => Ok(v),
-                    Ok(_) => Err(InputError::NonFinite {
-                        path: path.to_owned(),
-                        line,
-                        column: c + 1,
-                        name,
-                        text: excerpt(s),
-                    }),
-                    Err(_) => Err(InputError::NotANumber {
-                        path: path.to_owned(),
-                        line,
-                        column: c + 1,
-                        name,
-                        text: excerpt(s),
-                    }),
-                }
+                finite_field(s, path, line, c + 1, self.name_at(c))
             };
             let col = |slot: usize| self.cols[slot].unwrap_or(0);
             let label = text(col(EPOCH))?;

@@ -241,6 +241,50 @@ impl InputError {
     }
 }
 
+/// The one mapping of a csv-crate error: an I/O failure stays an I/O error (exit 1),
+/// anything else is malformed content at a line (exit 2).
+pub(crate) fn csv_error(path: &str, e: &csv::Error) -> InputError {
+    if let csv::ErrorKind::Io(io) = e.kind() {
+        return InputError::Io {
+            path: path.to_owned(),
+            source: std::io::Error::new(io.kind(), io.to_string()),
+        };
+    }
+    InputError::Csv {
+        path: path.to_owned(),
+        line: e.position().map(csv::Position::line).unwrap_or(0),
+        message: e.to_string(),
+    }
+}
+
+/// A field's text as a finite number; otherwise `NotANumber` or `NonFinite` naming the
+/// file, line, 1-based column and column name.
+pub(crate) fn finite_field(
+    s: &str,
+    path: &str,
+    line: u64,
+    column: usize,
+    name: &str,
+) -> Result<f64, InputError> {
+    match s.parse::<f64>() {
+        Ok(v) if v.is_finite() => Ok(v),
+        Ok(_) => Err(InputError::NonFinite {
+            path: path.to_owned(),
+            line,
+            column,
+            name: name.to_owned(),
+            text: excerpt(s),
+        }),
+        Err(_) => Err(InputError::NotANumber {
+            path: path.to_owned(),
+            line,
+            column,
+            name: name.to_owned(),
+            text: excerpt(s),
+        }),
+    }
+}
+
 /// Shorten a field shown in a message to at most 40 characters.
 pub(crate) fn excerpt(text: &str) -> String {
     const MAX: usize = 40;

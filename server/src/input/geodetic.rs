@@ -37,7 +37,7 @@ use kinema_core::points::validate_id;
 use kinema_core::{CoreError, Point};
 use nalgebra::{Matrix3, Vector3};
 
-use super::error::{InputError, excerpt};
+use super::error::{InputError, csv_error, excerpt, finite_field};
 use super::{Parsed, Points, ReadOptions, source};
 use crate::units::LengthUnit;
 
@@ -442,20 +442,6 @@ fn row(rec: &ByteRecord, layout: &Layout, path: &str, unit: LengthUnit) -> Resul
     })
 }
 
-fn csv_error(path: &str, e: &csv::Error) -> InputError {
-    if let csv::ErrorKind::Io(io) = e.kind() {
-        return InputError::Io {
-            path: path.to_owned(),
-            source: std::io::Error::new(io.kind(), io.to_string()),
-        };
-    }
-    InputError::Csv {
-        path: path.to_owned(),
-        line: e.position().map(csv::Position::line).unwrap_or(0),
-        message: e.to_string(),
-    }
-}
-
 fn text<'r>(
     rec: &'r ByteRecord,
     col: usize,
@@ -483,21 +469,5 @@ fn number(
     path: &str,
 ) -> Result<f64, InputError> {
     let s = text(rec, col, line, layout, path)?;
-    match s.parse::<f64>() {
-        Ok(v) if v.is_finite() => Ok(v),
-        Ok(_) => Err(InputError::NonFinite {
-            path: path.to_owned(),
-            line,
-            column: col + 1,
-            name: layout.names[col].clone(),
-            text: excerpt(s),
-        }),
-        Err(_) => Err(InputError::NotANumber {
-            path: path.to_owned(),
-            line,
-            column: col + 1,
-            name: layout.names[col].clone(),
-            text: excerpt(s),
-        }),
-    }
+    finite_field(s, path, line, col + 1, &layout.names[col])
 }

@@ -17,8 +17,7 @@ use csv::{ByteRecord, ReaderBuilder, Trim};
 use kinema_core::points::validate_id;
 use serde::Deserialize;
 
-use super::elements::csv_error;
-use super::error::{InputError, excerpt};
+use super::error::{InputError, csv_error, excerpt};
 use super::json_doc::{CheckedSeq, JsonId, parse_document};
 use super::source::{self, Source};
 

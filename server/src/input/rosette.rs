@@ -24,8 +24,7 @@ use kinema_core::points::validate_id;
 use kinema_core::rosette::{Gauge, MIN_GAUGES};
 use serde::Deserialize;
 
-use super::elements::csv_error;
-use super::error::{InputError, excerpt};
+use super::error::{InputError, csv_error, excerpt, finite_field};
 use super::json_doc::{CheckedSeq, JsonId, parse_document};
 use super::source::{self, Source};
 use crate::units::StrainUnit;
@@ -162,24 +161,7 @@ fn parse_csv<R: Read>(
         };
         let number = |c: usize| -> Result<f64, InputError> {
             let s = text(c)?;
-            let name = name_at(&cols, c).to_owned();
-            match s.parse::<f64>() {
-                Ok(v) if v.is_finite() => Ok(v),
-                Ok(_) => Err(InputError::NonFinite {
-                    path: path.to_owned(),
-                    line,
-                    column: c + 1,
-                    name,
-                    text: excerpt(s),
-                }),
-                Err(_) => Err(InputError::NotANumber {
-                    path: path.to_owned(),
-                    line,
-                    column: c + 1,
-                    name,
-                    text: excerpt(s),
-                }),
-            }
+            finite_field(s, path, line, c + 1, name_at(&cols, c))
         };
         let rosette = id(rc)?;
         let gauge = id(gc)?;
