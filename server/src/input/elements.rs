@@ -14,7 +14,7 @@ use std::collections::HashMap;
 use std::io::Read;
 use std::path::Path;
 
-use csv::{ByteRecord, ReaderBuilder, Trim};
+use csv::ByteRecord;
 use kinema_core::points::validate_id;
 use serde::Deserialize;
 
@@ -44,24 +44,11 @@ pub fn read_elements(path: &Path) -> Result<Vec<ElementRow>, InputError> {
 const EXPECTED: &str = "element_id (or id), v0, v1, v2, and v3 for tetrahedra";
 
 fn parse_csv<R: Read>(reader: R, path: &str) -> Result<Vec<ElementRow>, InputError> {
-    let mut rdr = ReaderBuilder::new()
-        .flexible(true)
-        .trim(Trim::All)
-        .from_reader(reader);
-    let header = rdr.byte_headers().map_err(|e| csv_error(path, &e))?.clone();
-    if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
-        return Err(InputError::Empty {
-            path: path.to_owned(),
-        });
-    }
+    let (mut rdr, header) = source::open_csv(reader, path)?;
     // Column positions: [id, v0, v1, v2, v3].
     let mut cols: [Option<usize>; 5] = [None; 5];
     let mut names = Vec::with_capacity(header.len());
-    for (i, raw) in header.iter().enumerate() {
-        let name = String::from_utf8_lossy(raw)
-            .trim_start_matches('\u{feff}')
-            .trim()
-            .to_owned();
+    for (i, name) in header.iter().cloned().enumerate() {
         let slot = match name.as_str() {
             "element_id" | "id" => 0,
             "v0" => 1,

@@ -26,7 +26,7 @@ use std::collections::HashMap;
 use std::io::Read;
 use std::path::Path;
 
-use csv::{ByteRecord, ReaderBuilder, Trim};
+use csv::ByteRecord;
 use kinema_core::CoreError;
 use kinema_core::points::validate_id;
 use kinema_core::timeseries::{Epoch, EpochPoint};
@@ -317,22 +317,9 @@ struct Building<const D: usize> {
 }
 
 fn parse_csv<R: Read>(reader: R, path: &str, unit: LengthUnit) -> Result<EpochSeries, InputError> {
-    let mut rdr = ReaderBuilder::new()
-        .flexible(true)
-        .trim(Trim::All)
-        .from_reader(reader);
-    let header = rdr.byte_headers().map_err(|e| csv_error(path, &e))?.clone();
-    if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
-        return Err(InputError::Empty {
-            path: path.to_owned(),
-        });
-    }
+    let (mut rdr, header) = source::open_csv(reader, path)?;
     let mut cols: [Option<usize>; 10] = [None; 10];
-    for (i, raw) in header.iter().enumerate() {
-        let name = String::from_utf8_lossy(raw)
-            .trim_start_matches('\u{feff}')
-            .trim()
-            .to_owned();
+    for (i, name) in header.iter().cloned().enumerate() {
         let key = if name == "point_id" { "id" } else { &name };
         let Some(slot) = NAMES.iter().position(|n| *n == key) else {
             return Err(InputError::UnknownColumn {

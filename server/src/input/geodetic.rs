@@ -31,7 +31,7 @@
 
 use std::path::Path;
 
-use csv::{ByteRecord, ReaderBuilder, Trim};
+use csv::ByteRecord;
 use kinema_core::geodesy::{EnuFrame, Geodetic, ecef_to_geodetic, geodetic_to_ecef};
 use kinema_core::points::validate_id;
 use kinema_core::{CoreError, Point};
@@ -164,24 +164,7 @@ pub fn read_geodetic(
         source::Source::Csv(reader, _) => reader,
         source::Source::Json(_) | source::Source::Blank => return Ok(None),
     };
-    let mut rdr = ReaderBuilder::new()
-        .has_headers(true)
-        .flexible(true)
-        .trim(Trim::All)
-        .from_reader(reader);
-    let header = rdr
-        .byte_headers()
-        .map_err(|e| csv_error(&display, &e))?
-        .clone();
-    let names: Vec<String> = header
-        .iter()
-        .map(|n| {
-            String::from_utf8_lossy(n)
-                .trim_start_matches('\u{feff}')
-                .trim()
-                .to_owned()
-        })
-        .collect();
+    let (mut rdr, names) = source::open_csv(reader, &display)?;
     if !names.iter().any(|n| n == "lat_ref") {
         return Ok(None);
     }

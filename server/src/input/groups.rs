@@ -13,7 +13,7 @@ use std::collections::{HashMap, HashSet};
 use std::io::Read;
 use std::path::Path;
 
-use csv::{ByteRecord, ReaderBuilder, Trim};
+use csv::ByteRecord;
 use kinema_core::points::validate_id;
 use serde::Deserialize;
 
@@ -41,22 +41,9 @@ pub fn read_groups(path: &Path) -> Result<Vec<GroupRows>, InputError> {
 }
 
 fn parse_csv<R: Read>(reader: R, path: &str) -> Result<Vec<GroupRows>, InputError> {
-    let mut rdr = ReaderBuilder::new()
-        .flexible(true)
-        .trim(Trim::All)
-        .from_reader(reader);
-    let header = rdr.byte_headers().map_err(|e| csv_error(path, &e))?.clone();
-    if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
-        return Err(InputError::Empty {
-            path: path.to_owned(),
-        });
-    }
+    let (mut rdr, header) = source::open_csv(reader, path)?;
     let mut cols: [Option<usize>; 2] = [None; 2];
-    for (i, raw) in header.iter().enumerate() {
-        let name = String::from_utf8_lossy(raw)
-            .trim_start_matches('\u{feff}')
-            .trim()
-            .to_owned();
+    for (i, name) in header.iter().cloned().enumerate() {
         let slot = match name.as_str() {
             "group" => 0,
             "point_id" => 1,

@@ -19,7 +19,7 @@ use std::collections::HashMap;
 use std::io::Read;
 use std::path::Path;
 
-use csv::{ByteRecord, ReaderBuilder, Trim};
+use csv::ByteRecord;
 use kinema_core::points::validate_id;
 use kinema_core::rosette::{Gauge, MIN_GAUGES};
 use serde::Deserialize;
@@ -70,23 +70,10 @@ fn parse_csv<R: Read>(
     path: &str,
     unit: StrainUnit,
 ) -> Result<Vec<RosetteRows>, InputError> {
-    let mut rdr = ReaderBuilder::new()
-        .flexible(true)
-        .trim(Trim::All)
-        .from_reader(reader);
-    let header = rdr.byte_headers().map_err(|e| csv_error(path, &e))?.clone();
-    if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
-        return Err(InputError::Empty {
-            path: path.to_owned(),
-        });
-    }
+    let (mut rdr, header) = source::open_csv(reader, path)?;
     // Column positions: [rosette, gauge, angle_deg, reading, zero].
     let mut cols: [Option<usize>; 5] = [None; 5];
-    for (i, raw) in header.iter().enumerate() {
-        let name = String::from_utf8_lossy(raw)
-            .trim_start_matches('\u{feff}')
-            .trim()
-            .to_owned();
+    for (i, name) in header.iter().cloned().enumerate() {
         let Some(slot) = NAMES.iter().position(|n| *n == name) else {
             return Err(InputError::UnknownColumn {
                 path: path.to_owned(),

@@ -90,3 +90,34 @@ fn progress_bar(len: u64, progress: bool) -> Option<ProgressBar> {
     }
     Some(bar)
 }
+
+/// A CSV reader over `reader` (flexible rows, fields trimmed) and the names of its header
+/// columns, trimmed and without a byte-order mark. An empty header is
+/// [`InputError::Empty`]: the one way every reader opens a CSV file.
+pub(crate) fn open_csv<R: Read>(
+    reader: R,
+    path: &str,
+) -> Result<(csv::Reader<R>, Vec<String>), InputError> {
+    let mut rdr = csv::ReaderBuilder::new()
+        .flexible(true)
+        .trim(csv::Trim::All)
+        .from_reader(reader);
+    let header = rdr
+        .byte_headers()
+        .map_err(|e| super::error::csv_error(path, &e))?;
+    if header.is_empty() || (header.len() == 1 && header[0].is_empty()) {
+        return Err(InputError::Empty {
+            path: path.to_owned(),
+        });
+    }
+    let names = header
+        .iter()
+        .map(|raw| {
+            String::from_utf8_lossy(raw)
+                .trim_start_matches('\u{feff}')
+                .trim()
+                .to_owned()
+        })
+        .collect();
+    Ok((rdr, names))
+}

@@ -51,6 +51,32 @@ fn deg(rad: f64) -> Cell {
     Cell::Num(rad.to_degrees())
 }
 
+/// The small-strain adequacy block, the same in 2D and 3D (see [`adequacy_cells`]).
+fn adequacy_columns(s: &'static str) -> [Column; 4] {
+    [
+        Column::new(
+            "small_strain_ok",
+            "",
+            "false when rotation or gradient is too large for small-strain theory at the strain resolution",
+        ),
+        Column::new(
+            "adequacy_note",
+            "",
+            "why small-strain theory is not adequate: rotation too large and/or gradient too large",
+        ),
+        Column::new(
+            "rotation_spurious_strain",
+            s,
+            "strain the small-strain tensor wrongly shows for the rigid rotation alone, |rotation|^2/2",
+        ),
+        Column::new(
+            "gradient_quadratic_strain",
+            s,
+            "quadratic (finite-strain) part of the stretch, max (lambda_i - 1)^2/2, that small-strain theory leaves out",
+        ),
+    ]
+}
+
 /// Columns of a 2D section: region, strain, then the `extra` block.
 pub fn columns2(u: Units, extra: Extra) -> Vec<Column> {
     let l = u.length.label();
@@ -118,27 +144,8 @@ pub fn columns2(u: Units, extra: Extra) -> Vec<Column> {
             "",
             "J = det(I + G), ratio of current to reference area",
         ),
-        Column::new(
-            "small_strain_ok",
-            "",
-            "false when rotation or gradient is too large for small-strain theory at the strain resolution",
-        ),
-        Column::new(
-            "adequacy_note",
-            "",
-            "why small-strain theory is not adequate: rotation too large and/or gradient too large",
-        ),
-        Column::new(
-            "rotation_spurious_strain",
-            s,
-            "strain the small-strain tensor wrongly shows for the rigid rotation alone, |rotation|^2/2",
-        ),
-        Column::new(
-            "gradient_quadratic_strain",
-            s,
-            "quadratic (finite-strain) part of the stretch, max (lambda_i - 1)^2/2, that small-strain theory leaves out",
-        ),
     ];
+    c.extend(adequacy_columns(s));
     c.extend(extra_columns(u, extra, 2));
     c
 }
@@ -213,27 +220,8 @@ pub fn columns3(u: Units, extra: Extra) -> Vec<Column> {
             "",
             "J = det(I + G), ratio of current to reference volume",
         ),
-        Column::new(
-            "small_strain_ok",
-            "",
-            "false when rotation or gradient is too large for small-strain theory at the strain resolution",
-        ),
-        Column::new(
-            "adequacy_note",
-            "",
-            "why small-strain theory is not adequate: rotation too large and/or gradient too large",
-        ),
-        Column::new(
-            "rotation_spurious_strain",
-            s,
-            "strain the small-strain tensor wrongly shows for the rigid rotation alone, |rotation|^2/2",
-        ),
-        Column::new(
-            "gradient_quadratic_strain",
-            s,
-            "quadratic (finite-strain) part of the stretch, max (lambda_i - 1)^2/2, that small-strain theory leaves out",
-        ),
     ];
+    c.extend(adequacy_columns(s));
     c.extend(extra_columns(u, extra, 3));
     c
 }
