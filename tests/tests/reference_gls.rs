@@ -17,9 +17,6 @@
 // Index loops over parallel arrays read most plainly in these checks.
 #![allow(clippy::needless_range_loop)]
 
-use std::io::Write;
-use std::process::{Command, Stdio};
-
 use kinema_core::estimate::RegionKind;
 use kinema_core::estimate::lsq::{DistanceWeight, FitOptions, fit_points};
 use kinema_core::{Point, PointSet};
@@ -73,44 +70,11 @@ print(json.dumps({"G": G.tolist(), "t": t.tolist(), "s0": s0, "reff": reff, "r":
                   "xbar": xw.tolist()}))
 "#;
 
-/// SplitMix64 (Steele, Lea & Flood, OOPSLA 2014): a seeded generator for the test data.
-struct Rng(u64);
-
-impl Rng {
-    fn uniform(&mut self) -> f64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64
-    }
-
-    fn range(&mut self, a: f64, b: f64) -> f64 {
-        a + (b - a) * self.uniform()
-    }
-}
+/// The seeded generator and the numpy runner shared by the reference tests.
+type Rng = kinema_tests::SplitMix64;
 
 fn numpy(input: &Value) -> Value {
-    let mut child = Command::new(kinema_tests::python())
-        .args(["-c", PY])
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("start Python with numpy");
-    child
-        .stdin
-        .take()
-        .expect("stdin")
-        .write_all(input.to_string().as_bytes())
-        .expect("write to Python");
-    let out = child.wait_with_output().expect("Python finished");
-    assert!(
-        out.status.success(),
-        "numpy reference failed: {}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    serde_json::from_slice(&out.stdout).expect("numpy JSON")
+    kinema_tests::python_json(PY, input)
 }
 
 fn close(got: f64, want: f64, rel: f64, abs: f64, what: &str) {
@@ -144,7 +108,7 @@ fn random_cov<const D: usize>(rng: &mut Rng) -> [[f64; D]; D] {
 /// Fit `n` random points with correlated covariances (some with only sigma), optionally
 /// Gaussian-weighted, and compare everything with numpy.
 fn check<const D: usize>(seed: u64, n: usize, gauss: Option<f64>) {
-    let mut rng = Rng(seed);
+    let mut rng = kinema_tests::SplitMix64(seed);
     let offset = [2.5e5, 6.1e6, 310.0];
     let g = [
         [3e-4, -1e-4, 2e-4],
