@@ -407,14 +407,14 @@ where
         } else {
             Vec::new()
         };
-        if let Some(f) = &e.fit
-            && !f.exact
-            && self.perfect_fit(f, &e.members)
-        {
-            self.tally.perfect_fits += 1;
-        }
         let prec = match &e.fit {
-            Some(f) => self.fit_precision(f, &e.members),
+            // Residuals at the rounding level of the data: the a-posteriori factor is
+            // rounding noise, and any test or standard deviation built on it is nonsense.
+            Some(f) if !f.exact && self.perfect_fit(f, &e.members) => {
+                self.tally.perfect_fits += 1;
+                None
+            }
+            Some(f) => self.fit_precision(f),
             None if extra == Extra::Shape => self.element_precision(&e.members),
             None => None,
         };
@@ -443,15 +443,11 @@ where
     /// has redundancy (F test), the a-priori factor 1 when it is trusted or the fit is
     /// exact with stated precision (chi-square test); none for an exact fit without
     /// stated precision (its covariance carries an arbitrary 1 m²).
-    fn fit_precision(&self, f: &FitStats<D>, members: &[usize]) -> Option<GradientPrecision> {
+    /// The caller has already set perfect fits aside.
+    fn fit_precision(&self, f: &FitStats<D>) -> Option<GradientPrecision> {
         let weighted = self.units.precision_weighted;
         let vf = f.variance_factor;
         if f.exact && !weighted {
-            return None;
-        }
-        if !f.exact && self.perfect_fit(f, members) {
-            // Residuals at the rounding level of the data: the a-posteriori factor is
-            // rounding noise, and any test or standard deviation built on it is nonsense.
             return None;
         }
         if f.exact || (self.stats.trust_apriori && weighted) {
