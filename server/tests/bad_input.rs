@@ -239,7 +239,7 @@ fn estimator_cases() -> Vec<Case> {
             ("sq.csv", SQUARE),
             None,
             vec!["--method", "neighbourhood", "--k", "9"],
-            "--k 9: a 2D neighbourhood fit needs at least 3 points, and the file holds 4",
+            "invalid parameter `k`: k = 9 exceeds the 4 points in the set",
         ),
         case(
             (

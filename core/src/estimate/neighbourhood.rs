@@ -69,7 +69,12 @@ pub enum Selection {
 }
 
 impl Selection {
-    fn validate(&self, dim: usize, n_points: usize) -> Result<()> {
+    /// Check the selection for a `dim`-dimensional fit over a set of `n_points` points
+    /// (the same check [`fit_neighbourhoods_with`] makes before its first outcome).
+    ///
+    /// # Errors
+    /// [`CoreError::InvalidParameter`] naming `k`, `radius_m` or `min_points`.
+    pub fn validate(&self, dim: usize, n_points: usize) -> Result<()> {
         match *self {
             Selection::Nearest { k } => {
                 if k > n_points {
@@ -118,7 +123,10 @@ impl Selection {
 impl<const D: usize> Centres<D> {
     /// Check grid parameters: finite origin, positive finite spacing, ≥ 1 node per axis,
     /// at most [`MAX_GRID_NODES`] nodes.
-    fn validate(&self) -> Result<()> {
+    ///
+    /// # Errors
+    /// [`CoreError::InvalidParameter`] naming `origin`, `spacing` or `counts`.
+    pub fn validate(&self) -> Result<()> {
         if let Centres::Grid {
             origin,
             spacing,

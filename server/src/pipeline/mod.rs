@@ -791,25 +791,15 @@ impl Context<'_> {
                         k: request.params.k,
                     },
                 };
-                // Checked here as well as in the core, because the core checks only
-                // once the header is written.
-                if let Selection::Nearest { k } = sel
-                    && (k < D + 1 || k > ps.len())
-                {
-                    {
-                        return Err(CliError::Usage(format!(
-                            "--k {k}: a {D}D neighbourhood fit needs at least {} points, and the \
-                             file holds {}",
-                            D + 1,
-                            ps.len()
-                        )));
-                    }
-                }
+                // Everything the core would refuse is refused before the header is
+                // written, so a bad parameter leaves no partial output.
+                sel.validate(D, ps.len())?;
                 fo.validate()?;
                 let centres = match request.params.grid_spacing_m {
                     None => Centres::AtPoints,
                     Some(h) => grid_centres(ps, h)?,
                 };
+                centres.validate()?;
                 self.emit(ps, sink, |w| {
                     fit_neighbourhoods_with(ps, &centres, &sel, &fo, |res| match res {
                         Ok(e) => w.estimate(&e),
