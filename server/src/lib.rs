@@ -9,8 +9,12 @@
 //! codes and licensed practice.
 #![forbid(unsafe_code)]
 
+pub mod api;
 pub mod cli;
 pub mod input;
+pub mod keys;
+pub mod model;
 pub mod output;
 pub mod pipeline;
+pub mod store;
 pub mod units;

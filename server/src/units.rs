@@ -4,16 +4,20 @@
 //! Core works in metres and dimensionless strain; these types convert at the edge.
 
 use clap::ValueEnum;
+use serde::{Deserialize, Serialize};
+use utoipa::ToSchema;
 
 /// Declared unit of input coordinates, displacements and standard deviations
 /// (and of `--radius` / `--weight-scale`).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum, Serialize, Deserialize, ToSchema)]
 pub enum LengthUnit {
     /// Metres (`m`).
     #[value(name = "m")]
+    #[serde(rename = "m")]
     Metre,
     /// Millimetres (`mm`).
     #[value(name = "mm")]
+    #[serde(rename = "mm")]
     Millimetre,
 }
 
@@ -57,13 +61,18 @@ impl LengthUnit {
 }
 
 /// Unit in which strains are written: dimensionless strain or microstrain (1e-6).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, Default, ValueEnum, Serialize, Deserialize, ToSchema,
+)]
 pub enum StrainUnit {
     /// Dimensionless strain (m/m).
     #[value(name = "strain")]
+    #[serde(rename = "strain")]
     Strain,
     /// Microstrain: strain × 10^6.
     #[value(name = "microstrain")]
+    #[serde(rename = "microstrain")]
+    #[default]
     Microstrain,
 }
 

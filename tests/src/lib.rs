@@ -5,6 +5,8 @@
 //! `.venv/bin/python` (made by `scripts/test`). A missing interpreter is a loud test
 //! failure, never a silent skip.
 
+pub mod db;
+
 use std::io::Write;
 use std::path::PathBuf;
 use std::process::{Command, Stdio};

@@ -5,6 +5,7 @@
 //! failure (a file that cannot be opened or written, an internal error).
 
 pub mod analyze;
+pub mod service;
 
 use std::io;
 

@@ -1,0 +1,157 @@
+//! Persistence: one [`Store`] trait, two implementations — SQLite (embedded default,
+//! one file, zero set-up) and PostgreSQL (production; several server instances may
+//! share one database). The same contract tests (`server/tests/store_contract.rs`) run
+//! against both.
+//!
+//! Rules every implementation keeps:
+//! - every write that belongs together is one transaction; an error leaves nothing
+//!   behind;
+//! - lengths are metres and times are UTC with microsecond resolution;
+//! - SQL binds every value (never formats one in).
+
+pub mod error;
+pub mod postgres;
+mod rows;
+pub mod sqlite;
+
+use std::sync::Arc;
+
+use async_trait::async_trait;
+use uuid::Uuid;
+
+pub use self::error::StoreError;
+use crate::model::{ApiKey, StoredPoint, Structure};
+
+/// Which database a store talks to.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Backend {
+    /// An SQLite file.
+    Sqlite,
+    /// A PostgreSQL server.
+    Postgres,
+}
+
+impl Backend {
+    /// `sqlite` or `postgres`.
+    pub fn name(self) -> &'static str {
+        match self {
+            Self::Sqlite => "sqlite",
+            Self::Postgres => "postgres",
+        }
+    }
+}
+
+/// Whether a put created the resource or replaced an existing one.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Written {
+    /// It did not exist before.
+    Created,
+    /// It existed and was replaced.
+    Updated,
+}
+
+/// How many points a put created and how many it replaced.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct PointsWritten {
+    /// Points that were new.
+    pub created: u64,
+    /// Points that existed and got new reference coordinates or precision.
+    pub updated: u64,
+}
+
+/// The storage contract of the service. See the module notes for the rules.
+#[async_trait]
+pub trait Store: Send + Sync + 'static {
+    /// The database behind this store.
+    fn backend(&self) -> Backend;
+
+    /// Apply the migrations under `migrations/<backend>` that have not run yet.
+    async fn migrate(&self) -> Result<(), StoreError>;
+
+    /// Round trip to the database (for `/readyz`).
+    async fn ping(&self) -> Result<(), StoreError>;
+
+    /// Create structure `s.id`, or replace its name, frame, unit, material and metadata.
+    /// `created_at` of an existing structure is kept; `updated_at` is taken from `s`.
+    /// Changing the dimension of a structure that has points is a
+    /// [`StoreError::Conflict`]. Returns the structure as stored.
+    async fn put_structure(&self, s: &Structure) -> Result<(Written, Structure), StoreError>;
+
+    /// One structure by ID.
+    async fn get_structure(&self, id: &str) -> Result<Option<Structure>, StoreError>;
+
+    /// Structures in ID order: at most `limit`, with IDs after `after`, and only those
+    /// in `only` when it is given.
+    async fn list_structures(
+        &self,
+        after: Option<&str>,
+        limit: usize,
+        only: Option<&[String]>,
+    ) -> Result<Vec<Structure>, StoreError>;
+
+    /// Delete a structure with everything that belongs to it; false when it did not exist.
+    async fn delete_structure(&self, id: &str) -> Result<bool, StoreError>;
+
+    /// Create or replace points of an existing structure, all in one transaction.
+    /// The caller has validated IDs, dimension and values.
+    async fn put_points(
+        &self,
+        structure: &str,
+        points: &[StoredPoint],
+    ) -> Result<PointsWritten, StoreError>;
+
+    /// All points of a structure in ID order.
+    async fn list_points(&self, structure: &str) -> Result<Vec<StoredPoint>, StoreError>;
+
+    /// Store a new API key (its token hash must be new).
+    async fn insert_key(&self, key: &ApiKey) -> Result<(), StoreError>;
+
+    /// The key whose token has this SHA-256 (lowercase hex), revoked or not.
+    async fn key_by_hash(&self, token_sha256: &str) -> Result<Option<ApiKey>, StoreError>;
+
+    /// All keys, oldest first.
+    async fn list_keys(&self) -> Result<Vec<ApiKey>, StoreError>;
+
+    /// Revoke a key; false when no valid key has this ID.
+    async fn revoke_key(&self, id: Uuid) -> Result<bool, StoreError>;
+}
+
+/// A shared handle to the store chosen at start-up.
+pub type DynStore = Arc<dyn Store>;
+
+/// Open the store for `url`: `postgres://…` / `postgresql://…` for PostgreSQL, and
+/// `sqlite:PATH` (or a bare file path) for SQLite; the SQLite file is created when
+/// missing. Does not migrate.
+pub async fn open(url: &str) -> Result<DynStore, StoreError> {
+    if url.starts_with("postgres://") || url.starts_with("postgresql://") {
+        Ok(Arc::new(postgres::PgStore::connect(url).await?))
+    } else {
+        Ok(Arc::new(sqlite::SqliteStore::open(url).await?))
+    }
+}
+
+/// A URL for log lines and `--help`: the password of a PostgreSQL URL is masked.
+pub fn redact_url(url: &str) -> String {
+    if let Some((scheme, rest)) = url.split_once("://")
+        && let Some((cred, host)) = rest.rsplit_once('@')
+        && let Some((user, _password)) = cred.split_once(':')
+    {
+        return format!("{scheme}://{user}:***@{host}");
+    }
+    url.to_owned()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::redact_url;
+
+    #[test]
+    fn passwords_are_masked_in_urls() {
+        assert_eq!(
+            redact_url("postgres://u:secret@db:5432/k"),
+            "postgres://u:***@db:5432/k"
+        );
+        assert_eq!(redact_url("postgres://u@db/k"), "postgres://u@db/k");
+        assert_eq!(redact_url("sqlite:kinema.db"), "sqlite:kinema.db");
+    }
+}

@@ -1,0 +1,202 @@
+//! Row shapes shared by both databases. Each is generic over how the database keeps
+//! a time (`OffsetDateTime` in PostgreSQL, integer microseconds in SQLite) and over
+//! the UUID column; the conversion into the service's types is written once here.
+
+use sqlx::types::Json;
+use time::OffsetDateTime;
+use uuid::Uuid;
+
+use super::StoreError;
+use crate::model::{ApiKey, Frame, Material, Scope, StoredPoint, Structure, from_unix_micros};
+use crate::units::LengthUnit;
+
+/// A time as one database keeps it.
+pub trait DbTime: Sized {
+    /// Into a UTC time.
+    fn into_time(self) -> Result<OffsetDateTime, StoreError>;
+}
+
+impl DbTime for OffsetDateTime {
+    fn into_time(self) -> Result<OffsetDateTime, StoreError> {
+        Ok(self)
+    }
+}
+
+impl DbTime for i64 {
+    fn into_time(self) -> Result<OffsetDateTime, StoreError> {
+        from_unix_micros(self).ok_or_else(|| StoreError::corrupt(format!("time {self} µs")))
+    }
+}
+
+/// An optional time.
+pub fn opt_time<T: DbTime>(t: Option<T>) -> Result<Option<OffsetDateTime>, StoreError> {
+    t.map(DbTime::into_time).transpose()
+}
+
+/// Columns of `structures` (without the internal key).
+#[derive(Debug, sqlx::FromRow)]
+pub struct StructureRow<T> {
+    pub id: String,
+    pub name: String,
+    pub dimension: i16,
+    pub frame: Json<Frame>,
+    pub length_unit: String,
+    pub material: Option<Json<Material>>,
+    pub metadata: Json<serde_json::Value>,
+    pub created_at: T,
+    pub updated_at: T,
+}
+
+/// The column list of [`StructureRow`], for `SELECT` (a literal, for `concat!`).
+macro_rules! structure_columns {
+    () => {
+        "s.id, s.name, s.dimension, s.frame, s.length_unit, s.material, s.metadata, s.created_at, s.updated_at"
+    };
+}
+pub(crate) use structure_columns;
+
+impl<T: DbTime> StructureRow<T> {
+    /// Into the service's type.
+    pub fn into_structure(self) -> Result<Structure, StoreError> {
+        let length_unit = LengthUnit::from_label(&self.length_unit)
+            .ok_or_else(|| StoreError::corrupt(format!("length unit {:?}", self.length_unit)))?;
+        let dimension = u8::try_from(self.dimension)
+            .ok()
+            .filter(|d| matches!(d, 2 | 3))
+            .ok_or_else(|| StoreError::corrupt(format!("dimension {}", self.dimension)))?;
+        Ok(Structure {
+            id: self.id,
+            name: self.name,
+            dimension,
+            frame: self.frame.0,
+            length_unit,
+            material: self.material.map(|m| m.0),
+            metadata: self.metadata.0,
+            created_at: self.created_at.into_time()?,
+            updated_at: self.updated_at.into_time()?,
+        })
+    }
+}
+
+/// Columns of `points` (without the keys).
+#[derive(Debug, sqlx::FromRow)]
+pub struct PointRow {
+    pub id: String,
+    pub x: f64,
+    pub y: f64,
+    pub z: Option<f64>,
+    pub sigma_x: Option<f64>,
+    pub sigma_y: Option<f64>,
+    pub sigma_z: Option<f64>,
+}
+
+/// The column list of [`PointRow`], for `SELECT` (a literal, for `concat!`).
+macro_rules! point_columns {
+    () => {
+        "p.id, p.x, p.y, p.z, p.sigma_x, p.sigma_y, p.sigma_z"
+    };
+}
+pub(crate) use point_columns;
+
+impl PointRow {
+    /// Into the service's type; `dimension` decides whether `z` is read.
+    pub fn into_point(self, dimension: u8) -> Result<StoredPoint, StoreError> {
+        let three = dimension == 3;
+        let mut x = vec![self.x, self.y];
+        if three {
+            x.push(
+                self.z
+                    .ok_or_else(|| StoreError::corrupt(format!("point {} has no z", self.id)))?,
+            );
+        }
+        let sigma = match (self.sigma_x, self.sigma_y, self.sigma_z) {
+            (Some(a), Some(b), c) if three => Some(vec![
+                a,
+                b,
+                c.ok_or_else(|| StoreError::corrupt(format!("point {} has no sigma_z", self.id)))?,
+            ]),
+            (Some(a), Some(b), _) => Some(vec![a, b]),
+            _ => None,
+        };
+        Ok(StoredPoint {
+            id: self.id,
+            x,
+            sigma,
+        })
+    }
+}
+
+/// Refuse a point that does not fit a structure of `dimension`: wrong number of
+/// coordinates or standard deviations, or a value that is not finite (NaN would be
+/// stored by PostgreSQL and turned into NULL by SQLite).
+pub fn check_point(p: &StoredPoint, dimension: i16) -> Result<(), StoreError> {
+    let dim = usize::try_from(dimension).unwrap_or(0);
+    let sizes_ok = p.x.len() == dim && p.sigma.as_ref().is_none_or(|s| s.len() == dim);
+    let finite =
+        p.x.iter()
+            .chain(p.sigma.iter().flatten())
+            .all(|v| v.is_finite());
+    if sizes_ok && finite {
+        Ok(())
+    } else {
+        Err(StoreError::Invalid(format!(
+            "point {} does not fit a {dim}D structure (coordinates {:?}, sigma {:?})",
+            p.id, p.x, p.sigma
+        )))
+    }
+}
+
+/// The coordinate and precision columns of a point to bind: `(x, y, z, sx, sy, sz)`.
+pub fn point_values(
+    p: &StoredPoint,
+) -> (f64, f64, Option<f64>, Option<f64>, Option<f64>, Option<f64>) {
+    let at = |v: &[f64], i: usize| v.get(i).copied();
+    let s = p.sigma.as_deref();
+    (
+        p.x.first().copied().unwrap_or(f64::NAN),
+        p.x.get(1).copied().unwrap_or(f64::NAN),
+        at(&p.x, 2),
+        s.and_then(|s| at(s, 0)),
+        s.and_then(|s| at(s, 1)),
+        s.and_then(|s| at(s, 2)),
+    )
+}
+
+/// Columns of `api_keys`.
+#[derive(Debug, sqlx::FromRow)]
+pub struct KeyRow<T> {
+    pub id: Uuid,
+    pub label: String,
+    pub prefix: String,
+    pub token_sha256: String,
+    pub scope: String,
+    pub structures: Option<Json<Vec<String>>>,
+    pub created_at: T,
+    pub revoked_at: Option<T>,
+}
+
+/// The column list of [`KeyRow`], for `SELECT` (a literal, for `concat!`).
+macro_rules! key_columns {
+    () => {
+        "id, label, prefix, token_sha256, scope, structures, created_at, revoked_at"
+    };
+}
+pub(crate) use key_columns;
+
+impl<T: DbTime> KeyRow<T> {
+    /// Into the service's type.
+    pub fn into_key(self) -> Result<ApiKey, StoreError> {
+        let scope = Scope::parse(&self.scope)
+            .ok_or_else(|| StoreError::corrupt(format!("scope {:?}", self.scope)))?;
+        Ok(ApiKey {
+            id: self.id,
+            label: self.label,
+            prefix: self.prefix,
+            scope,
+            structures: self.structures.map(|s| s.0),
+            created_at: self.created_at.into_time()?,
+            revoked_at: opt_time(self.revoked_at)?,
+            token_sha256: self.token_sha256,
+        })
+    }
+}
