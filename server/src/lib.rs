@@ -11,6 +11,7 @@
 
 pub mod api;
 pub mod cli;
+pub mod ingest;
 pub mod input;
 pub mod keys;
 pub mod model;

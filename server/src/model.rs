@@ -1,5 +1,5 @@
 //! The service's resources as they cross the API and the storage trait: structures,
-//! monitoring points and API keys. Lengths are stored in metres; the API converts at
+//! monitoring points, API keys, sensor batches and their readings. Lengths are stored in metres; the API converts at
 //! the edge with the structure's declared length unit.
 
 use serde::{Deserialize, Serialize};
@@ -182,6 +182,66 @@ impl ApiKey {
             .as_ref()
             .is_none_or(|list| list.iter().any(|s| s == id))
     }
+}
+
+/// One stored reading: displacement of a point at an epoch, metres.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Reading {
+    /// Point ID within the structure.
+    pub point_id: String,
+    /// When the point was measured, UTC, microsecond resolution.
+    pub epoch: OffsetDateTime,
+    /// Displacement from the point's reference coordinates, metres (2 or 3 values, as
+    /// the structure's dimension).
+    pub u: Vec<f64>,
+    /// A-priori standard deviations of the displacement components, metres; `None`
+    /// when the reading states none (then the point's own sigma applies, if any).
+    pub sigma: Option<Vec<f64>>,
+}
+
+/// An epoch with readings, and how many.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct EpochSummary {
+    /// The epoch, UTC.
+    pub epoch: OffsetDateTime,
+    /// Readings stored at this epoch (one per point at most).
+    pub readings: u64,
+}
+
+/// A stored sensor batch: what one `POST /v1/structures/{id}/batches` wrote.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, ToSchema)]
+pub struct Batch {
+    /// The batch's ID (UUID v4, made by the service).
+    pub id: Uuid,
+    /// The structure's asset ID.
+    pub structure_id: String,
+    /// When the service stored the batch, RFC 3339 UTC.
+    #[serde(with = "time::serde::rfc3339")]
+    pub received_at: OffsetDateTime,
+    /// Readings in the batch.
+    pub readings: u64,
+    /// Distinct monitoring points with readings in the batch.
+    pub points: u64,
+    /// Distinct epochs in the batch.
+    pub epochs: u64,
+    /// Earliest epoch of the batch, RFC 3339 UTC.
+    #[serde(with = "time::serde::rfc3339")]
+    pub first_epoch: OffsetDateTime,
+    /// Latest epoch of the batch, RFC 3339 UTC.
+    #[serde(with = "time::serde::rfc3339")]
+    pub last_epoch: OffsetDateTime,
+}
+
+/// What an `Idempotency-Key` is bound to: the first request's body hash and the
+/// response it got.
+#[derive(Debug, Clone, PartialEq)]
+pub struct IdempotentBatch {
+    /// The batch the first request stored.
+    pub batch: Batch,
+    /// SHA-256 of the first request's body, lowercase hex.
+    pub body_sha256: String,
+    /// The response body the first request got (JSON), returned again on replay.
+    pub response: serde_json::Value,
 }
 
 /// The current time, truncated to whole microseconds (what both databases keep).

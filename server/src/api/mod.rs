@@ -7,6 +7,7 @@
 //! place.
 
 pub mod auth;
+pub mod batches;
 pub mod extract;
 pub mod health;
 pub mod metrics;
@@ -100,6 +101,7 @@ const DESCRIPTION: &str = include_str!("description.md");
     components(schemas(problem::Problem, problem::FieldError)),
     tags(
         (name = "structures", description = "Monitored structures and their monitoring points"),
+        (name = "readings", description = "Sensor batches (streamed, all or nothing, idempotent with Idempotency-Key), their epochs and readings"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -129,6 +131,7 @@ fn api_routes() -> OpenApiRouter<AppState> {
     OpenApiRouter::with_openapi(ApiDoc::openapi())
         .merge(health::routes())
         .merge(structures::routes())
+        .merge(batches::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).

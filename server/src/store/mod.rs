@@ -14,13 +14,15 @@ pub mod postgres;
 mod rows;
 pub mod sqlite;
 
+use std::collections::HashMap;
 use std::sync::Arc;
 
 use async_trait::async_trait;
+use time::OffsetDateTime;
 use uuid::Uuid;
 
 pub use self::error::StoreError;
-use crate::model::{ApiKey, StoredPoint, Structure};
+use crate::model::{ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint, Structure};
 
 /// Which database a store talks to.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -57,6 +59,61 @@ pub struct PointsWritten {
     pub created: u64,
     /// Points that existed and got new reference coordinates or precision.
     pub updated: u64,
+}
+
+/// A validated reading on its way into the database: internal point key, UTC epoch
+/// with microsecond resolution, values in metres.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NewReading {
+    /// The point's internal key, from [`BatchWriter::points`].
+    pub point_key: i64,
+    /// The epoch, UTC, whole microseconds.
+    pub epoch: OffsetDateTime,
+    /// Displacement components, metres; the third is ignored in a 2D structure.
+    pub u: [f64; 3],
+    /// A-priori standard deviations, metres (third ignored in 2D); `None` when the
+    /// reading states none.
+    pub sigma: Option<[f64; 3]>,
+}
+
+/// What the service records about a batch besides its readings.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BatchMeta {
+    /// When the request arrived, UTC, whole microseconds.
+    pub received_at: OffsetDateTime,
+    /// Media type of the body (`application/json` or `text/csv`).
+    pub media_type: String,
+    /// The client's `Idempotency-Key`, if it sent one.
+    pub idempotency_key: Option<String>,
+    /// SHA-256 of the body, lowercase hex.
+    pub body_sha256: String,
+}
+
+/// A batch being written: one open transaction. Chunks of readings go in with
+/// [`BatchWriter::write`]; [`BatchWriter::commit`] stores the batch record and makes
+/// everything visible at once. Dropping the writer without committing rolls back:
+/// nothing of the batch stays.
+#[async_trait]
+pub trait BatchWriter: Send {
+    /// The new batch's ID (UUID v4, chosen when the writer began).
+    fn batch_id(&self) -> Uuid;
+
+    /// The structure's dimension (2 or 3).
+    fn dimension(&self) -> u8;
+
+    /// The structure's points: point ID → internal key, read inside the transaction.
+    fn points(&self) -> Arc<HashMap<String, i64>>;
+
+    /// Insert readings. A reading of a point at an epoch that is already stored is a
+    /// [`StoreError::Conflict`] naming the point and the epoch; after any error the
+    /// writer must be dropped.
+    async fn write(&mut self, chunk: &[NewReading]) -> Result<(), StoreError>;
+
+    /// Store the batch record (with `meta`, and as the stored response the returned
+    /// summary) and commit. No readings at all is [`StoreError::Invalid`]; an
+    /// `Idempotency-Key` that another batch of the structure took meanwhile is a
+    /// [`StoreError::Conflict`].
+    async fn commit(self: Box<Self>, meta: BatchMeta) -> Result<Batch, StoreError>;
 }
 
 /// The storage contract of the service. See the module notes for the rules.
@@ -114,6 +171,48 @@ pub trait Store: Send + Sync + 'static {
 
     /// Revoke a key; false when no valid key has this ID.
     async fn revoke_key(&self, id: Uuid) -> Result<bool, StoreError>;
+
+    /// Start writing a sensor batch into structure `structure` (one transaction;
+    /// in PostgreSQL the structure row is share-locked so that its points cannot
+    /// change meanwhile). [`StoreError::NotFound`] when the structure does not exist.
+    async fn begin_batch(&self, structure: &str) -> Result<Box<dyn BatchWriter>, StoreError>;
+
+    /// One batch of a structure.
+    async fn get_batch(&self, structure: &str, id: Uuid) -> Result<Option<Batch>, StoreError>;
+
+    /// Batches of a structure in `(received_at, id)` order: at most `limit`, after
+    /// `after` when given.
+    async fn list_batches(
+        &self,
+        structure: &str,
+        after: Option<(OffsetDateTime, Uuid)>,
+        limit: usize,
+    ) -> Result<Vec<Batch>, StoreError>;
+
+    /// The batch stored under `Idempotency-Key` `key` of a structure (keys are per
+    /// structure), with its body hash and stored response.
+    async fn batch_by_idempotency_key(
+        &self,
+        structure: &str,
+        key: &str,
+    ) -> Result<Option<IdempotentBatch>, StoreError>;
+
+    /// Epochs of a structure with readings, oldest first, with how many readings each;
+    /// only those within `from..=to` when given. Empty for an unknown structure.
+    async fn list_epochs(
+        &self,
+        structure: &str,
+        from: Option<OffsetDateTime>,
+        to: Option<OffsetDateTime>,
+    ) -> Result<Vec<EpochSummary>, StoreError>;
+
+    /// The readings of a structure at one epoch, in point ID order (metres). Empty
+    /// when there are none (or the structure does not exist).
+    async fn readings_at(
+        &self,
+        structure: &str,
+        epoch: OffsetDateTime,
+    ) -> Result<Vec<Reading>, StoreError>;
 }
 
 /// A shared handle to the store chosen at start-up.

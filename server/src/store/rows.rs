@@ -7,7 +7,10 @@ use time::OffsetDateTime;
 use uuid::Uuid;
 
 use super::StoreError;
-use crate::model::{ApiKey, Frame, Material, Scope, StoredPoint, Structure, from_unix_micros};
+use crate::model::{
+    ApiKey, Batch, Frame, IdempotentBatch, Material, Reading, Scope, StoredPoint, Structure,
+    from_unix_micros,
+};
 use crate::units::LengthUnit;
 
 /// A time as one database keeps it.
@@ -199,4 +202,175 @@ impl<T: DbTime> KeyRow<T> {
             token_sha256: self.token_sha256,
         })
     }
+}
+
+/// Columns of `batches` joined with the structure's ID.
+#[derive(Debug, sqlx::FromRow)]
+pub struct BatchRow<T> {
+    pub id: Uuid,
+    pub structure_id: String,
+    pub received_at: T,
+    pub readings: i64,
+    pub points: i64,
+    pub epochs: i64,
+    pub first_epoch: T,
+    pub last_epoch: T,
+}
+
+/// The column list of [`BatchRow`] (`b` = batches, `s` = structures), for `SELECT`.
+macro_rules! batch_columns {
+    () => {
+        "b.id, s.id AS structure_id, b.received_at, b.readings, b.points, b.epochs, \
+         b.first_epoch, b.last_epoch"
+    };
+}
+pub(crate) use batch_columns;
+
+impl<T: DbTime> BatchRow<T> {
+    /// Into the service's type.
+    pub fn into_batch(self) -> Result<Batch, StoreError> {
+        let count = |v: i64| u64::try_from(v).map_err(StoreError::corrupt);
+        Ok(Batch {
+            id: self.id,
+            structure_id: self.structure_id,
+            received_at: self.received_at.into_time()?,
+            readings: count(self.readings)?,
+            points: count(self.points)?,
+            epochs: count(self.epochs)?,
+            first_epoch: self.first_epoch.into_time()?,
+            last_epoch: self.last_epoch.into_time()?,
+        })
+    }
+}
+
+/// A batch with its idempotency record.
+#[derive(Debug, sqlx::FromRow)]
+pub struct IdempotentRow<T> {
+    #[sqlx(flatten)]
+    pub batch: BatchRow<T>,
+    pub body_sha256: String,
+    pub response: Json<serde_json::Value>,
+}
+
+impl<T: DbTime> IdempotentRow<T> {
+    /// Into the service's type.
+    pub fn into_idempotent(self) -> Result<IdempotentBatch, StoreError> {
+        Ok(IdempotentBatch {
+            batch: self.batch.into_batch()?,
+            body_sha256: self.body_sha256,
+            response: self.response.0,
+        })
+    }
+}
+
+/// Columns of `readings` joined with the point's ID.
+#[derive(Debug, sqlx::FromRow)]
+pub struct ReadingRow<T> {
+    pub point_id: String,
+    pub epoch: T,
+    pub ux: f64,
+    pub uy: f64,
+    pub uz: Option<f64>,
+    pub sigma_x: Option<f64>,
+    pub sigma_y: Option<f64>,
+    pub sigma_z: Option<f64>,
+}
+
+/// The column list of [`ReadingRow`] (`r` = readings, `p` = points), for `SELECT`.
+macro_rules! reading_columns {
+    () => {
+        "p.id AS point_id, r.epoch, r.ux, r.uy, r.uz, r.sigma_x, r.sigma_y, r.sigma_z"
+    };
+}
+pub(crate) use reading_columns;
+
+impl<T: DbTime> ReadingRow<T> {
+    /// Into the service's type; `dimension` decides whether `uz` and `sigma_z` are read.
+    pub fn into_reading(self, dimension: u8) -> Result<Reading, StoreError> {
+        let three = dimension == 3;
+        let missing = |what: &str| {
+            StoreError::corrupt(format!("a reading of {} has no {what}", self.point_id))
+        };
+        let mut u = vec![self.ux, self.uy];
+        if three {
+            u.push(self.uz.ok_or_else(|| missing("uz"))?);
+        }
+        let sigma = match (self.sigma_x, self.sigma_y) {
+            (Some(a), Some(b)) if three => {
+                Some(vec![a, b, self.sigma_z.ok_or_else(|| missing("sigma_z"))?])
+            }
+            (Some(a), Some(b)) => Some(vec![a, b]),
+            _ => None,
+        };
+        Ok(Reading {
+            epoch: self.epoch.into_time()?,
+            point_id: self.point_id,
+            u,
+            sigma,
+        })
+    }
+}
+
+/// What a batch writer counts while readings go in: distinct points and epochs, and
+/// the first and last epoch (microseconds since the Unix epoch).
+#[derive(Debug, Default)]
+pub struct BatchTally {
+    pub readings: u64,
+    pub points: std::collections::HashSet<i64>,
+    pub epochs: std::collections::HashSet<i64>,
+    pub first: i64,
+    pub last: i64,
+}
+
+impl BatchTally {
+    /// Count one reading.
+    pub fn add(&mut self, point_key: i64, epoch_us: i64) {
+        if self.readings == 0 {
+            self.first = epoch_us;
+            self.last = epoch_us;
+        } else {
+            self.first = self.first.min(epoch_us);
+            self.last = self.last.max(epoch_us);
+        }
+        self.readings += 1;
+        self.points.insert(point_key);
+        self.epochs.insert(epoch_us);
+    }
+
+    /// The batch summary, or [`StoreError::Invalid`] when nothing was written.
+    pub fn summary(
+        &self,
+        id: Uuid,
+        structure_id: &str,
+        received_at: OffsetDateTime,
+    ) -> Result<Batch, StoreError> {
+        if self.readings == 0 {
+            return Err(StoreError::Invalid(
+                "a batch needs at least one reading".into(),
+            ));
+        }
+        let t = |us: i64| {
+            from_unix_micros(us).ok_or_else(|| StoreError::Invalid(format!("epoch {us} µs")))
+        };
+        Ok(Batch {
+            id,
+            structure_id: structure_id.to_owned(),
+            received_at,
+            readings: self.readings,
+            points: self.points.len() as u64,
+            epochs: self.epochs.len() as u64,
+            first_epoch: t(self.first)?,
+            last_epoch: t(self.last)?,
+        })
+    }
+}
+
+/// The conflict for a reading of `point` at `epoch` that is stored already.
+pub fn duplicate(point: &str, epoch: OffsetDateTime) -> StoreError {
+    let t = epoch
+        .format(&time::format_description::well_known::Rfc3339)
+        .unwrap_or_else(|_| epoch.to_string());
+    StoreError::Conflict(format!(
+        "a reading of point {point} at epoch {t} is already stored; readings are unique per point and epoch"
+    ))
 }

@@ -2,6 +2,7 @@
 //! Times are `timestamptz`, JSON is `jsonb`, UUIDs are `uuid`. Writes that depend on a
 //! structure lock its row (`FOR UPDATE`), so concurrent writers to one structure queue.
 
+mod batches;
 mod keys;
 mod structures;
 
@@ -12,8 +13,10 @@ use async_trait::async_trait;
 use sqlx::postgres::{PgConnectOptions, PgPool, PgPoolOptions};
 use uuid::Uuid;
 
-use super::{Backend, PointsWritten, Store, StoreError, Written};
-use crate::model::{ApiKey, StoredPoint, Structure};
+use time::OffsetDateTime;
+
+use super::{Backend, BatchWriter, PointsWritten, Store, StoreError, Written};
+use crate::model::{ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint, Structure};
 
 /// The PostgreSQL implementation of [`Store`].
 #[derive(Debug, Clone)]
@@ -104,5 +107,47 @@ impl Store for PgStore {
 
     async fn revoke_key(&self, id: Uuid) -> Result<bool, StoreError> {
         keys::revoke_key(&self.pool, id).await
+    }
+
+    async fn begin_batch(&self, structure: &str) -> Result<Box<dyn BatchWriter>, StoreError> {
+        batches::begin_batch(self, structure).await
+    }
+
+    async fn get_batch(&self, structure: &str, id: Uuid) -> Result<Option<Batch>, StoreError> {
+        batches::get_batch(&self.pool, structure, id).await
+    }
+
+    async fn list_batches(
+        &self,
+        structure: &str,
+        after: Option<(OffsetDateTime, Uuid)>,
+        limit: usize,
+    ) -> Result<Vec<Batch>, StoreError> {
+        batches::list_batches(&self.pool, structure, after, limit).await
+    }
+
+    async fn batch_by_idempotency_key(
+        &self,
+        structure: &str,
+        key: &str,
+    ) -> Result<Option<IdempotentBatch>, StoreError> {
+        batches::batch_by_idempotency_key(&self.pool, structure, key).await
+    }
+
+    async fn list_epochs(
+        &self,
+        structure: &str,
+        from: Option<OffsetDateTime>,
+        to: Option<OffsetDateTime>,
+    ) -> Result<Vec<EpochSummary>, StoreError> {
+        batches::list_epochs(&self.pool, structure, from, to).await
+    }
+
+    async fn readings_at(
+        &self,
+        structure: &str,
+        epoch: OffsetDateTime,
+    ) -> Result<Vec<Reading>, StoreError> {
+        batches::readings_at(&self.pool, structure, epoch).await
     }
 }

@@ -5,6 +5,7 @@
 //! `BEGIN IMMEDIATE` so that two writers queue on the busy timeout instead of failing
 //! when a read transaction would have to upgrade.
 
+mod batches;
 mod keys;
 mod structures;
 
@@ -18,8 +19,10 @@ use sqlx::sqlite::{
 use sqlx::{Sqlite, Transaction};
 use uuid::Uuid;
 
-use super::{Backend, PointsWritten, Store, StoreError, Written};
-use crate::model::{ApiKey, StoredPoint, Structure};
+use time::OffsetDateTime;
+
+use super::{Backend, BatchWriter, PointsWritten, Store, StoreError, Written};
+use crate::model::{ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint, Structure};
 
 /// The SQLite implementation of [`Store`].
 #[derive(Debug, Clone)]
@@ -126,5 +129,47 @@ impl Store for SqliteStore {
 
     async fn revoke_key(&self, id: Uuid) -> Result<bool, StoreError> {
         keys::revoke_key(&self.pool, id).await
+    }
+
+    async fn begin_batch(&self, structure: &str) -> Result<Box<dyn BatchWriter>, StoreError> {
+        batches::begin_batch(self, structure).await
+    }
+
+    async fn get_batch(&self, structure: &str, id: Uuid) -> Result<Option<Batch>, StoreError> {
+        batches::get_batch(&self.pool, structure, id).await
+    }
+
+    async fn list_batches(
+        &self,
+        structure: &str,
+        after: Option<(OffsetDateTime, Uuid)>,
+        limit: usize,
+    ) -> Result<Vec<Batch>, StoreError> {
+        batches::list_batches(&self.pool, structure, after, limit).await
+    }
+
+    async fn batch_by_idempotency_key(
+        &self,
+        structure: &str,
+        key: &str,
+    ) -> Result<Option<IdempotentBatch>, StoreError> {
+        batches::batch_by_idempotency_key(&self.pool, structure, key).await
+    }
+
+    async fn list_epochs(
+        &self,
+        structure: &str,
+        from: Option<OffsetDateTime>,
+        to: Option<OffsetDateTime>,
+    ) -> Result<Vec<EpochSummary>, StoreError> {
+        batches::list_epochs(&self.pool, structure, from, to).await
+    }
+
+    async fn readings_at(
+        &self,
+        structure: &str,
+        epoch: OffsetDateTime,
+    ) -> Result<Vec<Reading>, StoreError> {
+        batches::readings_at(&self.pool, structure, epoch).await
     }
 }

@@ -143,7 +143,10 @@ pub(super) async fn delete_structure(store: &SqliteStore, id: &str) -> Result<bo
 
 /// Statements that delete a structure's rows in tables without a cascading foreign key
 /// (each binds the structure's internal key as `$1`), run before the structure row.
-pub(super) const DELETE_CHILDREN: &[&str] = &[];
+pub(super) const DELETE_CHILDREN: &[&str] = &[
+    // Readings have no foreign keys (ingestion speed; see 0002_batches_readings.sql).
+    "DELETE FROM readings WHERE structure_key = $1",
+];
 
 pub(super) async fn put_points(
     store: &SqliteStore,

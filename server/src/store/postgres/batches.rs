@@ -1,0 +1,343 @@
+//! Sensor batches and readings in PostgreSQL.
+//!
+//! A batch is one transaction that share-locks the structure row (`FOR SHARE`):
+//! several batches of one structure may be written at once, but its points cannot
+//! change meanwhile. Readings go in as one `INSERT … SELECT FROM UNNEST(…)` per chunk,
+//! each column bound as one array: one round trip and one statement per chunk.
+
+use std::collections::HashMap;
+use std::sync::Arc;
+
+use async_trait::async_trait;
+use sqlx::types::Json;
+use sqlx::{PgPool, Postgres, Transaction};
+use time::OffsetDateTime;
+use uuid::Uuid;
+
+use super::PgStore;
+use crate::model::{Batch, EpochSummary, IdempotentBatch, Reading, to_unix_micros};
+use crate::store::rows::duplicate;
+use crate::store::rows::{
+    BatchRow, BatchTally, IdempotentRow, ReadingRow, batch_columns, reading_columns,
+};
+use crate::store::{BatchMeta, BatchWriter, NewReading, StoreError};
+
+/// Most rows in one `INSERT … UNNEST` statement.
+pub const ROWS_PER_INSERT: usize = 10_000;
+
+pub(super) async fn begin_batch(
+    store: &PgStore,
+    structure: &str,
+) -> Result<Box<dyn BatchWriter>, StoreError> {
+    let mut tx = store.pool.begin().await?;
+    let found: Option<(i64, i16)> =
+        sqlx::query_as("SELECT key, dimension FROM structures WHERE id = $1 FOR SHARE")
+            .bind(structure)
+            .fetch_optional(&mut *tx)
+            .await?;
+    let (structure_key, dim) = found
+        .ok_or_else(|| StoreError::NotFound(format!("structure {structure} does not exist")))?;
+    let dimension = u8::try_from(dim).map_err(StoreError::corrupt)?;
+    let points: Vec<(String, i64)> =
+        sqlx::query_as("SELECT id, key FROM points WHERE structure_key = $1")
+            .bind(structure_key)
+            .fetch_all(&mut *tx)
+            .await?;
+    Ok(Box::new(PgBatchWriter {
+        tx,
+        pool: store.pool.clone(),
+        structure_key,
+        structure_id: structure.to_owned(),
+        dimension,
+        points: Arc::new(points.into_iter().collect()),
+        batch_id: Uuid::new_v4(),
+        tally: BatchTally::default(),
+    }))
+}
+
+/// The PostgreSQL [`BatchWriter`].
+struct PgBatchWriter {
+    tx: Transaction<'static, Postgres>,
+    /// For finding the conflicting reading after the transaction has failed.
+    pool: PgPool,
+    structure_key: i64,
+    structure_id: String,
+    dimension: u8,
+    points: Arc<HashMap<String, i64>>,
+    batch_id: Uuid,
+    tally: BatchTally,
+}
+
+/// The columns of a chunk, one array each.
+#[derive(Default)]
+struct Columns {
+    point_key: Vec<i64>,
+    epoch: Vec<OffsetDateTime>,
+    ux: Vec<f64>,
+    uy: Vec<f64>,
+    uz: Vec<Option<f64>>,
+    sx: Vec<Option<f64>>,
+    sy: Vec<Option<f64>>,
+    sz: Vec<Option<f64>>,
+}
+
+impl Columns {
+    fn of(rows: &[NewReading], three: bool) -> Self {
+        let mut c = Self {
+            point_key: Vec::with_capacity(rows.len()),
+            epoch: Vec::with_capacity(rows.len()),
+            ux: Vec::with_capacity(rows.len()),
+            uy: Vec::with_capacity(rows.len()),
+            uz: Vec::with_capacity(rows.len()),
+            sx: Vec::with_capacity(rows.len()),
+            sy: Vec::with_capacity(rows.len()),
+            sz: Vec::with_capacity(rows.len()),
+        };
+        for r in rows {
+            c.point_key.push(r.point_key);
+            c.epoch.push(r.epoch);
+            c.ux.push(r.u[0]);
+            c.uy.push(r.u[1]);
+            c.uz.push(three.then_some(r.u[2]));
+            c.sx.push(r.sigma.map(|s| s[0]));
+            c.sy.push(r.sigma.map(|s| s[1]));
+            c.sz.push(r.sigma.filter(|_| three).map(|s| s[2]));
+        }
+        c
+    }
+}
+
+impl PgBatchWriter {
+    /// The stored reading that one of `chunk` collides with, as a conflict message.
+    async fn conflict_in(&self, chunk: &[NewReading]) -> StoreError {
+        let c = Columns::of(chunk, false);
+        let hit: Result<Option<(String, OffsetDateTime)>, _> = sqlx::query_as(
+            "SELECT p.id, r.epoch FROM readings r JOIN points p ON p.key = r.point_key \
+             WHERE r.structure_key = $1 AND (r.epoch, r.point_key) IN \
+             (SELECT * FROM UNNEST($2::timestamptz[], $3::int8[])) LIMIT 1",
+        )
+        .bind(self.structure_key)
+        .bind(&c.epoch)
+        .bind(&c.point_key)
+        .fetch_optional(&self.pool)
+        .await;
+        match hit {
+            Ok(Some((point, epoch))) => duplicate(&point, epoch),
+            _ => StoreError::Conflict(
+                "a reading of this batch (point and epoch) is being stored by a concurrent batch"
+                    .into(),
+            ),
+        }
+    }
+}
+
+#[async_trait]
+impl BatchWriter for PgBatchWriter {
+    fn batch_id(&self) -> Uuid {
+        self.batch_id
+    }
+
+    fn dimension(&self) -> u8 {
+        self.dimension
+    }
+
+    fn points(&self) -> Arc<HashMap<String, i64>> {
+        self.points.clone()
+    }
+
+    async fn write(&mut self, chunk: &[NewReading]) -> Result<(), StoreError> {
+        let three = self.dimension == 3;
+        for rows in chunk.chunks(ROWS_PER_INSERT) {
+            let c = Columns::of(rows, three);
+            let done = sqlx::query(
+                "INSERT INTO readings (structure_key, point_key, epoch, ux, uy, uz, sigma_x, \
+                 sigma_y, sigma_z, batch_id) \
+                 SELECT $1::int8, t.*, $10::uuid FROM UNNEST($2::int8[], $3::timestamptz[], \
+                 $4::float8[], $5::float8[], $6::float8[], $7::float8[], $8::float8[], \
+                 $9::float8[]) AS t",
+            )
+            .bind(self.structure_key)
+            .bind(&c.point_key)
+            .bind(&c.epoch)
+            .bind(&c.ux)
+            .bind(&c.uy)
+            .bind(&c.uz)
+            .bind(&c.sx)
+            .bind(&c.sy)
+            .bind(&c.sz)
+            .bind(self.batch_id)
+            .execute(&mut *self.tx)
+            .await
+            .map_err(StoreError::from);
+            match done {
+                Ok(_) => {}
+                Err(e) if e.is_unique_violation() => return Err(self.conflict_in(rows).await),
+                Err(e) => return Err(e),
+            }
+        }
+        for r in chunk {
+            self.tally.add(r.point_key, to_unix_micros(r.epoch));
+        }
+        Ok(())
+    }
+
+    async fn commit(mut self: Box<Self>, meta: BatchMeta) -> Result<Batch, StoreError> {
+        let batch = self
+            .tally
+            .summary(self.batch_id, &self.structure_id, meta.received_at)?;
+        let response = serde_json::to_value(&batch).map_err(StoreError::corrupt)?;
+        let inserted = sqlx::query(
+            "INSERT INTO batches (id, structure_key, received_at, readings, points, epochs, \
+             first_epoch, last_epoch, media_type, idempotency_key, body_sha256, response) \
+             VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12)",
+        )
+        .bind(batch.id)
+        .bind(self.structure_key)
+        .bind(batch.received_at)
+        .bind(count(batch.readings))
+        .bind(count(batch.points))
+        .bind(count(batch.epochs))
+        .bind(batch.first_epoch)
+        .bind(batch.last_epoch)
+        .bind(&meta.media_type)
+        .bind(&meta.idempotency_key)
+        .bind(&meta.body_sha256)
+        .bind(Json(&response))
+        .execute(&mut *self.tx)
+        .await
+        .map_err(StoreError::from);
+        match inserted {
+            Err(e) if e.is_unique_violation() => {
+                return Err(StoreError::Conflict(
+                    "another request with this Idempotency-Key was stored meanwhile".into(),
+                ));
+            }
+            other => {
+                other?;
+            }
+        }
+        self.tx.commit().await?;
+        Ok(batch)
+    }
+}
+
+fn count(n: u64) -> i64 {
+    i64::try_from(n).unwrap_or(i64::MAX)
+}
+
+pub(super) async fn get_batch(
+    pool: &PgPool,
+    structure: &str,
+    id: Uuid,
+) -> Result<Option<Batch>, StoreError> {
+    sqlx::query_as::<_, BatchRow<OffsetDateTime>>(concat!(
+        "SELECT ",
+        batch_columns!(),
+        " FROM batches b JOIN structures s ON s.key = b.structure_key \
+         WHERE s.id = $1 AND b.id = $2"
+    ))
+    .bind(structure)
+    .bind(id)
+    .fetch_optional(pool)
+    .await?
+    .map(BatchRow::into_batch)
+    .transpose()
+}
+
+pub(super) async fn list_batches(
+    pool: &PgPool,
+    structure: &str,
+    after: Option<(OffsetDateTime, Uuid)>,
+    limit: usize,
+) -> Result<Vec<Batch>, StoreError> {
+    sqlx::query_as::<_, BatchRow<OffsetDateTime>>(concat!(
+        "SELECT ",
+        batch_columns!(),
+        " FROM batches b JOIN structures s ON s.key = b.structure_key \
+         WHERE s.id = $1 AND ($2::timestamptz IS NULL OR (b.received_at, b.id) > ($2, $3)) \
+         ORDER BY b.received_at, b.id LIMIT $4"
+    ))
+    .bind(structure)
+    .bind(after.map(|a| a.0))
+    .bind(after.map_or(Uuid::nil(), |a| a.1))
+    .bind(i64::try_from(limit).unwrap_or(i64::MAX))
+    .fetch_all(pool)
+    .await?
+    .into_iter()
+    .map(BatchRow::into_batch)
+    .collect()
+}
+
+pub(super) async fn batch_by_idempotency_key(
+    pool: &PgPool,
+    structure: &str,
+    key: &str,
+) -> Result<Option<IdempotentBatch>, StoreError> {
+    sqlx::query_as::<_, IdempotentRow<OffsetDateTime>>(concat!(
+        "SELECT ",
+        batch_columns!(),
+        ", b.body_sha256, b.response FROM batches b JOIN structures s ON s.key = b.structure_key \
+         WHERE s.id = $1 AND b.idempotency_key = $2"
+    ))
+    .bind(structure)
+    .bind(key)
+    .fetch_optional(pool)
+    .await?
+    .map(IdempotentRow::into_idempotent)
+    .transpose()
+}
+
+pub(super) async fn list_epochs(
+    pool: &PgPool,
+    structure: &str,
+    from: Option<OffsetDateTime>,
+    to: Option<OffsetDateTime>,
+) -> Result<Vec<EpochSummary>, StoreError> {
+    let rows: Vec<(OffsetDateTime, i64)> = sqlx::query_as(
+        "SELECT r.epoch, count(*) FROM readings r JOIN structures s ON s.key = r.structure_key \
+         WHERE s.id = $1 AND ($2::timestamptz IS NULL OR r.epoch >= $2) \
+         AND ($3::timestamptz IS NULL OR r.epoch <= $3) GROUP BY r.epoch ORDER BY r.epoch",
+    )
+    .bind(structure)
+    .bind(from)
+    .bind(to)
+    .fetch_all(pool)
+    .await?;
+    rows.into_iter()
+        .map(|(epoch, n)| {
+            Ok(EpochSummary {
+                epoch,
+                readings: u64::try_from(n).map_err(StoreError::corrupt)?,
+            })
+        })
+        .collect()
+}
+
+pub(super) async fn readings_at(
+    pool: &PgPool,
+    structure: &str,
+    epoch: OffsetDateTime,
+) -> Result<Vec<Reading>, StoreError> {
+    let dim: Option<(i16,)> = sqlx::query_as("SELECT dimension FROM structures WHERE id = $1")
+        .bind(structure)
+        .fetch_optional(pool)
+        .await?;
+    let Some((dim,)) = dim else {
+        return Ok(Vec::new());
+    };
+    let dim = u8::try_from(dim).map_err(StoreError::corrupt)?;
+    sqlx::query_as::<_, ReadingRow<OffsetDateTime>>(concat!(
+        "SELECT ",
+        reading_columns!(),
+        " FROM readings r JOIN structures s ON s.key = r.structure_key \
+         JOIN points p ON p.key = r.point_key \
+         WHERE s.id = $1 AND r.epoch = $2 ORDER BY p.id COLLATE \"C\""
+    ))
+    .bind(structure)
+    .bind(epoch)
+    .fetch_all(pool)
+    .await?
+    .into_iter()
+    .map(|r| r.into_reading(dim))
+    .collect()
+}
