@@ -117,11 +117,13 @@ impl SqliteBatchWriter {
         for r in chunk {
             let hit: Result<Option<(String,)>, _> = sqlx::query_as(
                 "SELECT p.id FROM readings r JOIN points p ON p.key = r.point_key \
-                 WHERE r.structure_key = $1 AND r.epoch = $2 AND r.point_key = $3",
+                 WHERE r.structure_key = $1 AND r.epoch = $2 AND r.point_key = $3 \
+                 AND r.batch_id <> $4",
             )
             .bind(self.structure_key)
             .bind(to_unix_micros(r.epoch))
             .bind(r.point_key)
+            .bind(self.batch_id)
             .fetch_optional(&mut *self.tx)
             .await;
             if let Ok(Some((point,))) = hit {
