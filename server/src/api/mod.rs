@@ -10,6 +10,7 @@ pub mod auth;
 pub mod batches;
 pub mod extract;
 pub mod health;
+pub mod keys;
 pub mod metrics;
 pub mod page;
 pub mod problem;
@@ -27,7 +28,8 @@ use tower::ServiceBuilder;
 use tower::limit::GlobalConcurrencyLimitLayer;
 use tower_http::catch_panic::CatchPanicLayer;
 use tower_http::timeout::TimeoutLayer;
-use tower_http::trace::TraceLayer;
+use tower_http::trace::{DefaultMakeSpan, DefaultOnResponse, TraceLayer};
+use tracing::Level;
 use utoipa::openapi::security::{HttpAuthScheme, HttpBuilder, SecurityScheme};
 use utoipa::{Modify, OpenApi};
 use utoipa_axum::router::OpenApiRouter;
@@ -102,6 +104,7 @@ const DESCRIPTION: &str = include_str!("description.md");
     tags(
         (name = "structures", description = "Monitored structures and their monitoring points"),
         (name = "readings", description = "Sensor batches (streamed, all or nothing, idempotent with Idempotency-Key), their epochs and readings"),
+        (name = "keys", description = "API keys (an unrestricted admin key only)"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -132,6 +135,7 @@ fn api_routes() -> OpenApiRouter<AppState> {
         .merge(health::routes())
         .merge(structures::routes())
         .merge(batches::routes())
+        .merge(keys::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).
@@ -173,6 +177,10 @@ pub fn app(state: AppState) -> Router {
         )
         .layer(CatchPanicLayer::new())
         .layer(middleware::from_fn_with_state(metrics, metrics::record))
-        .layer(TraceLayer::new_for_http())
+        .layer(
+            TraceLayer::new_for_http()
+                .make_span_with(DefaultMakeSpan::new().level(Level::INFO))
+                .on_response(DefaultOnResponse::new().level(Level::INFO)),
+        )
         .layer(middleware::from_fn(problem::problem_fallback))
 }
