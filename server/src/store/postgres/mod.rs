@@ -2,6 +2,7 @@
 //! Times are `timestamptz`, JSON is `jsonb`, UUIDs are `uuid`. Writes that depend on a
 //! structure lock its row (`FOR UPDATE`), so concurrent writers to one structure queue.
 
+mod analyses;
 mod keys;
 mod structures;
 
@@ -13,7 +14,7 @@ use sqlx::postgres::{PgConnectOptions, PgPool, PgPoolOptions};
 use uuid::Uuid;
 
 use super::{Backend, PointsWritten, Store, StoreError, Written};
-use crate::model::{ApiKey, StoredPoint, Structure};
+use crate::model::{Analysis, AnalysisQuery, ApiKey, StoredPoint, Structure};
 
 /// The PostgreSQL implementation of [`Store`].
 #[derive(Debug, Clone)]
@@ -104,5 +105,25 @@ impl Store for PgStore {
 
     async fn revoke_key(&self, id: Uuid) -> Result<bool, StoreError> {
         keys::revoke_key(&self.pool, id).await
+    }
+
+    async fn insert_analysis(&self, a: &Analysis) -> Result<(), StoreError> {
+        analyses::insert_analysis(&self.pool, a).await
+    }
+
+    async fn get_analysis(
+        &self,
+        structure: &str,
+        id: Uuid,
+    ) -> Result<Option<Analysis>, StoreError> {
+        analyses::get_analysis(&self.pool, structure, id).await
+    }
+
+    async fn list_analyses(
+        &self,
+        structure: &str,
+        q: &AnalysisQuery,
+    ) -> Result<Vec<Analysis>, StoreError> {
+        analyses::list_analyses(&self.pool, structure, q).await
     }
 }

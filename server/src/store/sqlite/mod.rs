@@ -5,6 +5,7 @@
 //! `BEGIN IMMEDIATE` so that two writers queue on the busy timeout instead of failing
 //! when a read transaction would have to upgrade.
 
+mod analyses;
 mod keys;
 mod structures;
 
@@ -19,7 +20,7 @@ use sqlx::{Sqlite, Transaction};
 use uuid::Uuid;
 
 use super::{Backend, PointsWritten, Store, StoreError, Written};
-use crate::model::{ApiKey, StoredPoint, Structure};
+use crate::model::{Analysis, AnalysisQuery, ApiKey, StoredPoint, Structure};
 
 /// The SQLite implementation of [`Store`].
 #[derive(Debug, Clone)]
@@ -126,5 +127,25 @@ impl Store for SqliteStore {
 
     async fn revoke_key(&self, id: Uuid) -> Result<bool, StoreError> {
         keys::revoke_key(&self.pool, id).await
+    }
+
+    async fn insert_analysis(&self, a: &Analysis) -> Result<(), StoreError> {
+        analyses::insert_analysis(&self.pool, a).await
+    }
+
+    async fn get_analysis(
+        &self,
+        structure: &str,
+        id: Uuid,
+    ) -> Result<Option<Analysis>, StoreError> {
+        analyses::get_analysis(&self.pool, structure, id).await
+    }
+
+    async fn list_analyses(
+        &self,
+        structure: &str,
+        q: &AnalysisQuery,
+    ) -> Result<Vec<Analysis>, StoreError> {
+        analyses::list_analyses(&self.pool, structure, q).await
     }
 }
