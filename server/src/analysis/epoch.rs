@@ -148,3 +148,125 @@ mod tests {
         assert_eq!(r.points[0].sigma, Some(vec![0.003, 0.004]));
     }
 }
+
+/// An epoch analysis as asked for: the epoch, an optional baseline epoch, the
+/// estimator, its options and the strain unit of the result.
+#[derive(Debug, Clone, PartialEq)]
+pub struct EpochRequest {
+    /// The epoch analysed.
+    pub epoch: time::OffsetDateTime,
+    /// The baseline epoch; `None` = displacements from the reference coordinates.
+    pub baseline_epoch: Option<time::OffsetDateTime>,
+    /// The estimator.
+    pub method: super::params::MethodSpec,
+    /// Its options.
+    pub options: super::params::FieldOptions,
+    /// Unit of the strains in the result.
+    pub strain_unit: crate::units::StrainUnit,
+}
+
+/// Run an epoch analysis of `structure` with its `points` and the readings `at` the
+/// epoch (and at the baseline epoch): a succeeded analysis with the result document,
+/// or a failed one with the estimator's reason when it cannot compute on the data.
+///
+/// # Errors
+/// [`super::AnalysisError::Invalid`] / [`super::AnalysisError::Parameters`] when the
+/// method or options are not valid for these points (nothing is to be stored).
+pub fn run_epoch(
+    structure: &crate::model::Structure,
+    points: &[StoredPoint],
+    at: &[Displacement],
+    baseline: Option<&[Displacement]>,
+    req: &EpochRequest,
+) -> Result<crate::model::Analysis, super::AnalysisError> {
+    use super::{AnalysisError, field, params};
+    use crate::model::{Analysis, AnalysisKind, AnalysisStatus, Frame, now_utc};
+    let started = std::time::Instant::now();
+    let errs = params::validate(&req.method, &req.options);
+    if !errs.is_empty() {
+        return Err(AnalysisError::Invalid(errs));
+    }
+    let ep = epoch_points(points, at, baseline);
+    let rfc = |t: time::OffsetDateTime| {
+        t.format(&time::format_description::well_known::Rfc3339)
+            .unwrap_or_default()
+    };
+    let inputs = serde_json::json!({
+        "points_in_structure": points.len(),
+        "points_used": ep.points.len(),
+        "epoch": rfc(req.epoch),
+        "baseline_epoch": req.baseline_epoch.map(rfc),
+        "readings_at_epoch": at.len(),
+        "readings_at_baseline": baseline.map(<[Displacement]>::len),
+        "left_out": ep.left_out,
+    });
+    let parameters = serde_json::json!({
+        "method": req.method,
+        "options": req.options,
+        "strain_unit": req.strain_unit,
+        "length_unit": structure.length_unit,
+    });
+    let label = format!(
+        "structure {} epoch {}{}",
+        structure.id,
+        rfc(req.epoch),
+        req.baseline_epoch
+            .map_or_else(|| " from the reference coordinates".to_owned(), |b| format!(
+                " relative to epoch {}",
+                rfc(b)
+            ))
+    );
+    let outcome = (|| {
+        if ep.points.is_empty() {
+            return Err(AnalysisError::NotComputable(
+                "no point of the structure has the readings needed".into(),
+            ));
+        }
+        let pts = field::points(usize::from(structure.dimension), ep.points.clone())?;
+        let mut r = params::request(
+            pts,
+            &req.method,
+            &req.options,
+            structure.length_unit,
+            req.strain_unit,
+            &label,
+        )?;
+        if let Frame::Enu { origin } = &structure.frame {
+            let frame = kinema_core::geodesy::EnuFrame::new(
+                &kinema_core::geodesy::Geodetic::from_degrees(
+                    origin.lat_deg,
+                    origin.lon_deg,
+                    origin.h_m,
+                ),
+            )
+            .map_err(|e| AnalysisError::Internal(format!("stored ENU origin: {e}")))?;
+            field::set_enu(&mut r, frame);
+        }
+        let doc = field::run(&r)?;
+        if field::accepted(&doc) == 0 {
+            return Err(AnalysisError::NotComputable(field::rejection_reasons(&doc)));
+        }
+        Ok(doc)
+    })();
+    let (status, result, error) = match outcome {
+        Ok(doc) => (AnalysisStatus::Succeeded, Some(doc), None),
+        Err(AnalysisError::NotComputable(m)) => (AnalysisStatus::Failed, None, Some(m)),
+        Err(e) => return Err(e),
+    };
+    Ok(Analysis {
+        id: uuid::Uuid::new_v4(),
+        structure_id: structure.id.clone(),
+        kind: AnalysisKind::Epoch,
+        status,
+        method: req.method.name().to_owned(),
+        epoch: Some(req.epoch),
+        baseline_epoch: req.baseline_epoch,
+        parameters,
+        inputs,
+        software_version: env!("CARGO_PKG_VERSION").to_owned(),
+        result,
+        error,
+        created_at: now_utc(),
+        duration_ms: u64::try_from(started.elapsed().as_millis()).unwrap_or(u64::MAX),
+    })
+}

@@ -6,7 +6,9 @@
 //! response. Every error is an [`problem::ApiError`], mapped to problem details in one
 //! place.
 
+pub mod analyses;
 pub mod auth;
+pub mod compute;
 pub mod extract;
 pub mod health;
 pub mod metrics;
@@ -100,6 +102,8 @@ const DESCRIPTION: &str = include_str!("description.md");
     components(schemas(problem::Problem, problem::FieldError)),
     tags(
         (name = "structures", description = "Monitored structures and their monitoring points"),
+        (name = "compute", description = "Stateless strain computations; nothing is stored"),
+        (name = "analyses", description = "Analyses of a structure's readings, their history and exports"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -129,6 +133,8 @@ fn api_routes() -> OpenApiRouter<AppState> {
     OpenApiRouter::with_openapi(ApiDoc::openapi())
         .merge(health::routes())
         .merge(structures::routes())
+        .merge(compute::routes())
+        .merge(analyses::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).
