@@ -41,7 +41,10 @@ impl Api {
         let bytes = axum::body::to_bytes(resp.into_body(), 1 << 26)
             .await
             .expect("body");
-        (status, serde_json::from_slice(&bytes).unwrap_or(Value::Null))
+        (
+            status,
+            serde_json::from_slice(&bytes).unwrap_or(Value::Null),
+        )
     }
 
     async fn post(&self, path: &str, body: &Value) -> (StatusCode, Value) {
@@ -79,7 +82,12 @@ async fn principal_strains_follow_the_mohr_circle_closed_form() {
         .await;
     assert_eq!(s, StatusCode::OK, "{v}");
     assert_eq!(v["strain_unit"], "microstrain");
-    assert!(v["caution"].as_str().expect("caution").contains("not a structural"));
+    assert!(
+        v["caution"]
+            .as_str()
+            .expect("caution")
+            .contains("not a structural")
+    );
     // Textbook Mohr circle: e1,2 = (exx+eyy)/2 ± sqrt(((exx−eyy)/2)² + exy²),
     // tan 2θp = 2exy/(exx−eyy).
     let c = (exx + eyy) / 2.0;
@@ -89,7 +97,11 @@ async fn principal_strains_follow_the_mohr_circle_closed_form() {
     assert!(close(num(&v["principal"][0]["value"]), e1, 1e-12));
     assert!(close(num(&v["principal"][1]["value"]), e2, 1e-12));
     let theta = 0.5 * (2.0 * exy).atan2(exx - eyy);
-    assert!(close(num(&v["principal"][0]["angle_deg"]), theta.to_degrees(), 1e-10));
+    assert!(close(
+        num(&v["principal"][0]["angle_deg"]),
+        theta.to_degrees(),
+        1e-10
+    ));
     // Azimuth clockwise from north of an axis at θ from east: 90° − θ (mod 180).
     assert!(close(
         num(&v["principal"][0]["azimuth_deg"]),
@@ -100,10 +112,22 @@ async fn principal_strains_follow_the_mohr_circle_closed_form() {
     assert!(close(num(&v["mohr"][0]["radius"]), r * 1e6, 1e-12));
     // Maximum shear: tensor = R, engineering = 2R (both labelled).
     assert!(close(num(&v["max_shear"]["tensor_shear"]), r * 1e6, 1e-12));
-    assert!(close(num(&v["max_shear"]["engineering_shear"]), 2.0 * r * 1e6, 1e-12));
-    assert!(close(num(&v["engineering_shear"][0]), 2.0 * exy * 1e6, 1e-12));
+    assert!(close(
+        num(&v["max_shear"]["engineering_shear"]),
+        2.0 * r * 1e6,
+        1e-12
+    ));
+    assert!(close(
+        num(&v["engineering_shear"][0]),
+        2.0 * exy * 1e6,
+        1e-12
+    ));
     // Volumetric strain = trace.
-    assert!(close(num(&v["volumetric_strain"]), (exx + eyy) * 1e6, 1e-12));
+    assert!(close(
+        num(&v["volumetric_strain"]),
+        (exx + eyy) * 1e6,
+        1e-12
+    ));
     assert_eq!(v["isotropic"], false);
     assert_eq!(v["small_strain"]["adequate"], true);
 }
@@ -117,7 +141,10 @@ async fn pure_rotation_has_zero_strain_and_rigid_green_lagrange() {
     let phi: f64 = 0.02;
     let g = [[phi.cos() - 1.0, -phi.sin()], [phi.sin(), phi.cos() - 1.0]];
     let (s, v) = a
-        .post("/v1/compute/gradient", &json!({"gradient": g, "strain_unit": "strain"}))
+        .post(
+            "/v1/compute/gradient",
+            &json!({"gradient": g, "strain_unit": "strain"}),
+        )
         .await;
     assert_eq!(s, StatusCode::OK, "{v}");
     for i in 0..2 {
@@ -126,13 +153,22 @@ async fn pure_rotation_has_zero_strain_and_rigid_green_lagrange() {
         }
     }
     assert!(close(num(&v["rotation_rad"]), phi.sin(), 1e-12));
-    assert!(close(num(&v["strain_tensor"][0][0]), phi.cos() - 1.0, 1e-12));
+    assert!(close(
+        num(&v["strain_tensor"][0][0]),
+        phi.cos() - 1.0,
+        1e-12
+    ));
     // Isotropic small strain: no direction, flagged.
     assert_eq!(v["isotropic"], true);
     assert!(v["principal"][0]["direction"].is_null());
     // 2e-4 spurious strain > the default 1e-6 resolution: small strain is not adequate.
     assert_eq!(v["small_strain"]["adequate"], false);
-    assert!(!v["small_strain"]["reasons"].as_array().expect("reasons").is_empty());
+    assert!(
+        !v["small_strain"]["reasons"]
+            .as_array()
+            .expect("reasons")
+            .is_empty()
+    );
 }
 
 #[tokio::test]
@@ -144,7 +180,10 @@ async fn three_d_principal_strains_match_numpy_eigh() {
         [-40e-6, 5e-6, 80e-6],
     ];
     let (s, v) = a
-        .post("/v1/compute/gradient", &json!({"gradient": g, "strain_unit": "strain"}))
+        .post(
+            "/v1/compute/gradient",
+            &json!({"gradient": g, "strain_unit": "strain"}),
+        )
         .await;
     assert_eq!(s, StatusCode::OK, "{v}");
     // numpy.linalg.eigh of the symmetric part (ascending; reversed for e1 ≥ e2 ≥ e3).
@@ -158,13 +197,22 @@ async fn three_d_principal_strains_match_numpy_eigh() {
     );
     for k in 0..3 {
         let want = num(&reference["w"][k]);
-        assert!(close(num(&v["principal"][k]["value"]), want, 1e-9), "{k}: {v}");
+        assert!(
+            close(num(&v["principal"][k]["value"]), want, 1e-9),
+            "{k}: {v}"
+        );
         // Directions agree up to sign: |n·n_ref| = 1.
         let d = &v["principal"][k]["direction"];
-        let dot: f64 = (0..3).map(|i| num(&d[i]) * num(&reference["v"][k][i])).sum();
+        let dot: f64 = (0..3)
+            .map(|i| num(&d[i]) * num(&reference["v"][k][i]))
+            .sum();
         assert!(close(dot.abs(), 1.0, 1e-9), "{k}: {dot}");
     }
-    assert!(close(num(&v["volumetric_strain"]), num(&reference["tr"]), 1e-12));
+    assert!(close(
+        num(&v["volumetric_strain"]),
+        num(&reference["tr"]),
+        1e-12
+    ));
     assert_eq!(v["mohr"].as_array().map(Vec::len), Some(3));
 }
 
@@ -174,7 +222,10 @@ fn square_grid(g: [[f64; 2]; 2], unit_scale: f64) -> Vec<Value> {
     for i in 0..4 {
         for j in 0..4 {
             // Slightly irregular so that the triangulation is unique.
-            let x = [f64::from(i) * 10.0 + 0.3 * f64::from(j % 2), f64::from(j) * 10.0];
+            let x = [
+                f64::from(i) * 10.0 + 0.3 * f64::from(j % 2),
+                f64::from(j) * 10.0,
+            ];
             let u = [
                 g[0][0] * x[0] + g[0][1] * x[1] + 0.002,
                 g[1][0] * x[0] + g[1][1] * x[1] - 0.001,
@@ -197,7 +248,12 @@ async fn a_uniform_field_is_recovered_exactly_by_every_method() {
     let exy = (g[0][1] + g[1][0]) / 2.0;
     for (method, section, unit, scale) in [
         (json!({"kind": "delaunay"}), "elements", "m", 1.0),
-        (json!({"kind": "neighbourhood", "k": 6}), "neighbourhoods", "mm", 1000.0),
+        (
+            json!({"kind": "neighbourhood", "k": 6}),
+            "neighbourhoods",
+            "mm",
+            1000.0,
+        ),
         (json!({"kind": "network"}), "network", "m", 1.0),
         (
             json!({"kind": "groups", "groups": [{"name": "G1", "point_ids": ["P0", "P1", "P5", "P4"]}]}),
@@ -226,10 +282,22 @@ async fn a_uniform_field_is_recovered_exactly_by_every_method() {
         let rows = v[section].as_array().expect("section rows");
         assert!(!rows.is_empty(), "{method}");
         for r in rows {
-            assert!(close(num(&r["exx_microstrain"]), g[0][0] * 1e6, 1e-7), "{method}: {r}");
-            assert!(close(num(&r["eyy_microstrain"]), g[1][1] * 1e6, 1e-7), "{method}: {r}");
-            assert!(close(num(&r["exy_microstrain"]), exy * 1e6, 1e-7), "{method}: {r}");
-            assert!(close(num(&r["gxy_microstrain"]), 2.0 * exy * 1e6, 1e-7), "{method}: {r}");
+            assert!(
+                close(num(&r["exx_microstrain"]), g[0][0] * 1e6, 1e-7),
+                "{method}: {r}"
+            );
+            assert!(
+                close(num(&r["eyy_microstrain"]), g[1][1] * 1e6, 1e-7),
+                "{method}: {r}"
+            );
+            assert!(
+                close(num(&r["exy_microstrain"]), exy * 1e6, 1e-7),
+                "{method}: {r}"
+            );
+            assert!(
+                close(num(&r["gxy_microstrain"]), 2.0 * exy * 1e6, 1e-7),
+                "{method}: {r}"
+            );
         }
     }
 }
@@ -271,13 +339,18 @@ async fn bad_inputs_get_status_and_pointer() {
         ..Limits::default()
     })
     .await;
-    let pts = |v: Vec<Value>| json!({"length_unit": "m", "points": v, "method": {"kind": "delaunay"}});
+    let pts =
+        |v: Vec<Value>| json!({"length_unit": "m", "points": v, "method": {"kind": "delaunay"}});
     let p = |id: &str, x: [f64; 2]| json!({"id": id, "x": x, "u": [0.0, 0.0]});
     // Duplicate point IDs.
     let (s, v) = a
         .post(
             "/v1/compute/strain-field",
-            &pts(vec![p("A", [0.0, 0.0]), p("B", [1.0, 0.0]), p("A", [0.0, 1.0])]),
+            &pts(vec![
+                p("A", [0.0, 0.0]),
+                p("B", [1.0, 0.0]),
+                p("A", [0.0, 1.0]),
+            ]),
         )
         .await;
     assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY, "{v}");
@@ -286,11 +359,21 @@ async fn bad_inputs_get_status_and_pointer() {
     let (s, v) = a
         .post(
             "/v1/compute/strain-field",
-            &pts(vec![p("A", [0.0, 0.0]), p("B", [1.0, 1.0]), p("C", [2.0, 2.0])]),
+            &pts(vec![
+                p("A", [0.0, 0.0]),
+                p("B", [1.0, 1.0]),
+                p("C", [2.0, 2.0]),
+            ]),
         )
         .await;
     assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY, "{v}");
-    assert!(v["type"].as_str().expect("type").ends_with("not-computable"), "{v}");
+    assert!(
+        v["type"]
+            .as_str()
+            .expect("type")
+            .ends_with("not-computable"),
+        "{v}"
+    );
     // Wrong sizes and a negative sigma.
     let (s, v) = a
         .post(
@@ -313,7 +396,9 @@ async fn bad_inputs_get_status_and_pointer() {
         .await;
     assert_eq!(s, StatusCode::BAD_REQUEST);
     // Over the point limit: 413.
-    let many: Vec<Value> = (0..11).map(|i| p(&format!("P{i}"), [f64::from(i), 0.0])).collect();
+    let many: Vec<Value> = (0..11)
+        .map(|i| p(&format!("P{i}"), [f64::from(i), 0.0]))
+        .collect();
     let (s, _) = a.post("/v1/compute/strain-field", &pts(many)).await;
     assert_eq!(s, StatusCode::PAYLOAD_TOO_LARGE);
     // Unknown unit: 422 at /length_unit.
@@ -338,12 +423,18 @@ async fn bad_inputs_get_status_and_pointer() {
     assert_eq!(pointers(&v), ["/method/k", "/options/alpha"]);
     // Gradient: not square; det F ≤ 0 is refused by the kinematics.
     let (s, v) = a
-        .post("/v1/compute/gradient", &json!({"gradient": [[0.0, 0.0], [0.0]]}))
+        .post(
+            "/v1/compute/gradient",
+            &json!({"gradient": [[0.0, 0.0], [0.0]]}),
+        )
         .await;
     assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY);
     assert_eq!(pointers(&v), ["/gradient/1"]);
     let (s, _) = a
-        .post("/v1/compute/gradient", &json!({"gradient": [[-2.0, 0.0], [0.0, 0.0]]}))
+        .post(
+            "/v1/compute/gradient",
+            &json!({"gradient": [[-2.0, 0.0], [0.0, 0.0]]}),
+        )
         .await;
     assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY);
     // Rosette: two gauges in one direction cannot give a strain state.
@@ -366,7 +457,10 @@ async fn bad_inputs_get_status_and_pointer() {
         )
         .await;
     assert_eq!(s, StatusCode::UNPROCESSABLE_ENTITY);
-    assert_eq!(pointers(&v), ["/rosettes/0/gauges", "/rosettes/0/gauges/1/id"]);
+    assert_eq!(
+        pointers(&v),
+        ["/rosettes/0/gauges", "/rosettes/0/gauges/1/id"]
+    );
     // No key: 401.
     let req = Request::post("/v1/compute/gradient")
         .header(header::CONTENT_TYPE, "application/json")

@@ -210,11 +210,10 @@ pub fn run_epoch(
         "structure {} epoch {}{}",
         structure.id,
         rfc(req.epoch),
-        req.baseline_epoch
-            .map_or_else(|| " from the reference coordinates".to_owned(), |b| format!(
-                " relative to epoch {}",
-                rfc(b)
-            ))
+        req.baseline_epoch.map_or_else(
+            || " from the reference coordinates".to_owned(),
+            |b| format!(" relative to epoch {}", rfc(b))
+        )
     );
     let outcome = (|| {
         if ep.points.is_empty() {
@@ -232,14 +231,13 @@ pub fn run_epoch(
             &label,
         )?;
         if let Frame::Enu { origin } = &structure.frame {
-            let frame = kinema_core::geodesy::EnuFrame::new(
-                &kinema_core::geodesy::Geodetic::from_degrees(
+            let frame =
+                kinema_core::geodesy::EnuFrame::new(&kinema_core::geodesy::Geodetic::from_degrees(
                     origin.lat_deg,
                     origin.lon_deg,
                     origin.h_m,
-                ),
-            )
-            .map_err(|e| AnalysisError::Internal(format!("stored ENU origin: {e}")))?;
+                ))
+                .map_err(|e| AnalysisError::Internal(format!("stored ENU origin: {e}")))?;
             field::set_enu(&mut r, frame);
         }
         let doc = field::run(&r)?;

@@ -130,7 +130,9 @@ pub struct GradientReport {
 }
 
 fn rows<const D: usize>(m: &[[f64; D]; D], f: impl Fn(f64) -> f64) -> Vec<Vec<f64>> {
-    m.iter().map(|r| r.iter().map(|&v| f(v)).collect()).collect()
+    m.iter()
+        .map(|r| r.iter().map(|&v| f(v)).collect())
+        .collect()
 }
 
 /// Azimuth of an axis at `angle` (radians counter-clockwise from east), degrees in
@@ -198,7 +200,10 @@ pub fn report(
         if r.len() != d {
             errs.push(FieldError::new(
                 format!("/gradient/{i}"),
-                format!("every row has {d} entries (a square matrix), this one {}", r.len()),
+                format!(
+                    "every row has {d} entries (a square matrix), this one {}",
+                    r.len()
+                ),
             ));
         }
         for (j, v) in r.iter().enumerate() {

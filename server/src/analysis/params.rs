@@ -135,7 +135,10 @@ pub fn validate(method: &MethodSpec, options: &FieldOptions) -> Vec<FieldError> 
                 } else if let Some(first) = seen.insert(e.id.as_str(), i) {
                     errs.push(FieldError::new(
                         format!("{at}/id"),
-                        format!("element ID {} is already used by /method/elements/{first}", e.id),
+                        format!(
+                            "element ID {} is already used by /method/elements/{first}",
+                            e.id
+                        ),
                     ));
                 }
                 if !matches!(e.vertices.len(), 3 | 4) {
@@ -165,7 +168,10 @@ pub fn validate(method: &MethodSpec, options: &FieldOptions) -> Vec<FieldError> 
                 } else if let Some(first) = seen.insert(g.name.as_str(), i) {
                     errs.push(FieldError::new(
                         format!("{at}/name"),
-                        format!("group name {} is already used by /method/groups/{first}", g.name),
+                        format!(
+                            "group name {} is already used by /method/groups/{first}",
+                            g.name
+                        ),
                     ));
                 }
                 if g.point_ids.len() < 3 {

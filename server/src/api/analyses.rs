@@ -89,7 +89,9 @@ pub async fn list_analyses(
         .map(|(ns, id)| {
             OffsetDateTime::from_unix_timestamp_nanos(ns)
                 .map(|t| (t, id))
-                .map_err(|_| ApiError::field("/cursor", "the cursor is not one this service issued"))
+                .map_err(|_| {
+                    ApiError::field("/cursor", "the cursor is not one this service issued")
+                })
         })
         .transpose()?;
     if let (Some(a), Some(b)) = (f.from, f.to)
@@ -132,9 +134,7 @@ async fn find(
         .store
         .get_analysis(id, aid)
         .await?
-        .ok_or_else(|| {
-            ApiError::NotFound(format!("structure {id} has no analysis {aid}"))
-        })?;
+        .ok_or_else(|| ApiError::NotFound(format!("structure {id} has no analysis {aid}")))?;
     Ok((s, a))
 }
 
@@ -247,8 +247,8 @@ pub async fn get_result(
             .map_err(|e| ApiError::Internal(format!("stored ENU origin: {e}")))?;
             let points = state.store.list_points(&id).await?;
             let fc = export::geojson(&doc, &points, &frame)?;
-            let body = serde_json::to_vec(&fc)
-                .map_err(|e| ApiError::Internal(format!("GeoJSON: {e}")))?;
+            let body =
+                serde_json::to_vec(&fc).map_err(|e| ApiError::Internal(format!("GeoJSON: {e}")))?;
             Ok(with_type(body, "application/geo+json"))
         }
     }

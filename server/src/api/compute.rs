@@ -14,10 +14,10 @@ use super::AppState;
 use super::auth::Caller;
 use super::extract::ApiJson;
 use super::problem::{ApiError, FieldError, Problem};
+use crate::analysis::AnalysisError;
 use crate::analysis::field::{self, FieldPoint};
 use crate::analysis::gradient::{self, GradientReport};
 use crate::analysis::params::{self, FieldOptions, MethodSpec};
-use crate::analysis::AnalysisError;
 use crate::cli::analyze::{DEFAULT_STRAIN_RESOLUTION, Method, default_args};
 use crate::input::RosetteRows;
 use crate::model::{Scope, id_problem};
@@ -171,7 +171,11 @@ pub fn check_points(
                 format!("point ID {} is already used by /points/{first}", p.id),
             ));
         }
-        for (name, v) in [("x", Some(&p.x)), ("u", Some(&p.u)), ("sigma", p.sigma.as_ref())] {
+        for (name, v) in [
+            ("x", Some(&p.x)),
+            ("u", Some(&p.u)),
+            ("sigma", p.sigma.as_ref()),
+        ] {
             if let Some(v) = v {
                 if v.len() != dim {
                     errs.push(FieldError::new(
@@ -323,7 +327,10 @@ fn rosette_rows(body: &RosettesInput, max: usize) -> Result<Vec<RosetteRows>, Ap
         )));
     }
     if body.rosettes.is_empty() {
-        return Err(ApiError::field("/rosettes", "at least one rosette is needed"));
+        return Err(ApiError::field(
+            "/rosettes",
+            "at least one rosette is needed",
+        ));
     }
     let to_strain = |v: f64| match body.reading_unit {
         StrainUnit::Strain => v,
@@ -366,7 +373,10 @@ fn rosette_rows(body: &RosettesInput, max: usize) -> Result<Vec<RosetteRows>, Ap
                 ("zero", g.zero),
             ] {
                 if v.is_some_and(|v| !v.is_finite()) {
-                    errs.push(FieldError::new(format!("{gat}/{name}"), "not a finite number"));
+                    errs.push(FieldError::new(
+                        format!("{gat}/{name}"),
+                        "not a finite number",
+                    ));
                 }
             }
             gauges.push(Gauge {

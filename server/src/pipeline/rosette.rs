@@ -258,7 +258,10 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<RosetteRequest, CliError> {
 /// The part of [`prepare`] after the gauge readings have been read (readings in
 /// dimensionless strain, angles in radians): check the corrections and the stress
 /// flags and fill in the header. Nothing is read or written.
-pub fn prepare_from(a: &AnalyzeArgs, rosettes: Vec<RosetteRows>) -> Result<RosetteRequest, CliError> {
+pub fn prepare_from(
+    a: &AnalyzeArgs,
+    rosettes: Vec<RosetteRows>,
+) -> Result<RosetteRequest, CliError> {
     let unit = a.reading_unit.unwrap_or(DEFAULT_READING_UNIT);
     let corrections = corrections(a, unit)?;
     let stress = StressSpec::from_flags(&a.stress_flags(), 2, a.strain_unit)?;

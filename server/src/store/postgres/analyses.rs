@@ -1,7 +1,7 @@
 //! Analyses in PostgreSQL.
 
 use sqlx::types::Json;
-use sqlx::{QueryBuilder, Postgres, PgPool};
+use sqlx::{PgPool, Postgres, QueryBuilder};
 use time::OffsetDateTime;
 use uuid::Uuid;
 
@@ -90,7 +90,6 @@ pub(super) async fn list_analyses(
         b.push(" AND a.status = ").push_bind(st.as_str());
     }
     if let Some((t, id)) = q.after {
-        
         b.push(" AND (a.created_at < ")
             .push_bind(t)
             .push(" OR (a.created_at = ")

@@ -80,7 +80,8 @@ pub(super) async fn list_analyses(
     ));
     b.push_bind(structure.to_owned());
     if let Some(from) = q.from {
-        b.push(" AND a.created_at >= ").push_bind(to_unix_micros(from));
+        b.push(" AND a.created_at >= ")
+            .push_bind(to_unix_micros(from));
     }
     if let Some(to) = q.to {
         b.push(" AND a.created_at < ").push_bind(to_unix_micros(to));
