@@ -11,6 +11,7 @@ pub mod auth;
 pub mod compute;
 pub mod extract;
 pub mod health;
+pub mod keys;
 pub mod metrics;
 pub mod page;
 pub mod problem;
@@ -28,7 +29,8 @@ use tower::ServiceBuilder;
 use tower::limit::GlobalConcurrencyLimitLayer;
 use tower_http::catch_panic::CatchPanicLayer;
 use tower_http::timeout::TimeoutLayer;
-use tower_http::trace::TraceLayer;
+use tower_http::trace::{DefaultMakeSpan, DefaultOnResponse, TraceLayer};
+use tracing::Level;
 use utoipa::openapi::security::{HttpAuthScheme, HttpBuilder, SecurityScheme};
 use utoipa::{Modify, OpenApi};
 use utoipa_axum::router::OpenApiRouter;
@@ -102,6 +104,7 @@ const DESCRIPTION: &str = include_str!("description.md");
     components(schemas(problem::Problem, problem::FieldError)),
     tags(
         (name = "structures", description = "Monitored structures and their monitoring points"),
+        (name = "keys", description = "API keys (an unrestricted admin key only)"),
         (name = "compute", description = "Stateless strain computations; nothing is stored"),
         (name = "analyses", description = "Analyses of a structure's readings, their history and exports"),
         (name = "service", description = "Health, readiness and metrics"),
@@ -133,6 +136,7 @@ fn api_routes() -> OpenApiRouter<AppState> {
     OpenApiRouter::with_openapi(ApiDoc::openapi())
         .merge(health::routes())
         .merge(structures::routes())
+        .merge(keys::routes())
         .merge(compute::routes())
         .merge(analyses::routes())
 }
@@ -176,6 +180,10 @@ pub fn app(state: AppState) -> Router {
         )
         .layer(CatchPanicLayer::new())
         .layer(middleware::from_fn_with_state(metrics, metrics::record))
-        .layer(TraceLayer::new_for_http())
+        .layer(
+            TraceLayer::new_for_http()
+                .make_span_with(DefaultMakeSpan::new().level(Level::INFO))
+                .on_response(DefaultOnResponse::new().level(Level::INFO)),
+        )
         .layer(middleware::from_fn(problem::problem_fallback))
 }

@@ -1,0 +1,145 @@
+#!/usr/bin/env python3
+"""Write the HTTP request bodies of the service demo from the offline demo data.
+
+Everything here is invented: the Ashcombe Lane retaining wall (asset ALRW-01), the
+Hollin Scar landslip (asset HSLS-03), their targets, antennas and movements.  Python
+standard library only; the output is the same on every run.
+
+  alrw01/structure.json       PUT /v1/structures/ALRW-01 (local frame of the wall face, mm)
+  alrw01/points.json          PUT /v1/structures/ALRW-01/points (positions at survey S0)
+  alrw01/batch-S0.csv … S6    POST /v1/structures/ALRW-01/batches (text/csv, one per
+                              survey: displacement since S0, mm; T20 missing at S3)
+  hsls03/structure.json       PUT /v1/structures/HSLS-03 (East-North-Up about the mean
+                              reference position of the antennas)
+  hsls03/points.json          PUT /v1/structures/HSLS-03/points (WGS84 positions)
+  hsls03/batch.json           POST /v1/structures/HSLS-03/batches (application/json: the
+                              reference epoch with zero displacement and the current one,
+                              displacements along East/North/Up in m)
+"""
+
+import csv
+import json
+import math
+import os
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+OFFLINE = os.path.join(HERE, "..", "offline")
+
+# WGS84 (NIMA TR8350.2): semi-major axis and flattening.
+A = 6378137.0
+F = 1.0 / 298.257223563
+E2 = F * (2.0 - F)
+
+
+def write_json(path, doc):
+    os.makedirs(os.path.dirname(path), exist_ok=True)
+    with open(path, "w", encoding="utf-8") as f:
+        json.dump(doc, f, indent=2)
+        f.write("\n")
+
+
+def ecef(lat_deg, lon_deg, h):
+    lat, lon = math.radians(lat_deg), math.radians(lon_deg)
+    n = A / math.sqrt(1.0 - E2 * math.sin(lat) ** 2)
+    return (
+        (n + h) * math.cos(lat) * math.cos(lon),
+        (n + h) * math.cos(lat) * math.sin(lon),
+        (n * (1.0 - E2) + h) * math.sin(lat),
+    )
+
+
+def enu_delta(lat_deg, lon_deg, d):
+    """ECEF difference d rotated into East-North-Up at (lat, lon)."""
+    lat, lon = math.radians(lat_deg), math.radians(lon_deg)
+    sl, cl, sp, cp = math.sin(lon), math.cos(lon), math.sin(lat), math.cos(lat)
+    e = -sl * d[0] + cl * d[1]
+    n = -sp * cl * d[0] - sp * sl * d[1] + cp * d[2]
+    u = cp * cl * d[0] + cp * sl * d[1] + sp * d[2]
+    return e, n, u
+
+
+def wall():
+    rows = list(csv.DictReader(open(os.path.join(OFFLINE, "epochs.csv"), encoding="utf-8")))
+    base = {r["id"]: r for r in rows if r["epoch"] == "S0"}
+    write_json(
+        os.path.join(HERE, "alrw01", "structure.json"),
+        {
+            "name": "Ashcombe Lane retaining wall",
+            "dimension": 2,
+            "frame": {"kind": "local"},
+            "length_unit": "mm",
+            "material": {"name": "concrete C30/37", "youngs_modulus_gpa": 33.0, "poisson_ratio": 0.2},
+            "metadata": {"asset_register": "AL-RW-0001", "owner": "Ashcombe District (invented)"},
+        },
+    )
+    write_json(
+        os.path.join(HERE, "alrw01", "points.json"),
+        {
+            "length_unit": "mm",
+            "points": [
+                {"id": pid, "x": [float(r["x"]), float(r["y"])],
+                 "sigma": [float(r["sigma_x"]), float(r["sigma_y"])]}
+                for pid, r in sorted(base.items())
+            ],
+        },
+    )
+    for label in sorted({r["epoch"] for r in rows}):
+        path = os.path.join(HERE, "alrw01", f"batch-{label}.csv")
+        with open(path, "w", encoding="utf-8", newline="") as f:
+            w = csv.writer(f, lineterminator="\n")
+            w.writerow(["point_id", "epoch", "ux", "uy", "sigma_x", "sigma_y"])
+            for r in rows:
+                if r["epoch"] != label:
+                    continue
+                b = base[r["id"]]
+                w.writerow([
+                    r["id"], r["time"],
+                    f"{float(r['x']) - float(b['x']):.3f}", f"{float(r['y']) - float(b['y']):.3f}",
+                    r["sigma_x"], r["sigma_y"],
+                ])
+
+
+def slope():
+    rows = list(csv.DictReader(open(os.path.join(OFFLINE, "gnss.csv"), encoding="utf-8")))
+    lat0 = sum(float(r["lat_ref"]) for r in rows) / len(rows)
+    lon0 = sum(float(r["lon_ref"]) for r in rows) / len(rows)
+    h0 = sum(float(r["h_ref"]) for r in rows) / len(rows)
+    write_json(
+        os.path.join(HERE, "hsls03", "structure.json"),
+        {
+            "name": "Hollin Scar landslip",
+            "dimension": 2,
+            "frame": {"kind": "enu", "origin": {"lat_deg": round(lat0, 10), "lon_deg": round(lon0, 10), "h_m": round(h0, 4)}},
+            "length_unit": "m",
+            "metadata": {"asset_register": "HS-LS-0003", "monitoring": "GNSS, 12 antennas (invented)"},
+        },
+    )
+    write_json(
+        os.path.join(HERE, "hsls03", "points.json"),
+        {
+            "points": [
+                {"id": r["id"],
+                 "wgs84": {"lat_deg": float(r["lat_ref"]), "lon_deg": float(r["lon_ref"]), "h_m": float(r["h_ref"])},
+                 "sigma": [float(r["sigma_e"]), float(r["sigma_n"])]}
+                for r in rows
+            ]
+        },
+    )
+    readings = []
+    for r in rows:
+        readings.append({"point_id": r["id"], "epoch": "2026-05-04T06:00:00Z", "u": [0.0, 0.0]})
+    for r in rows:
+        p = ecef(float(r["lat_ref"]), float(r["lon_ref"]), float(r["h_ref"]))
+        q = ecef(float(r["lat_cur"]), float(r["lon_cur"]), float(r["h_cur"]))
+        e, n, _ = enu_delta(float(r["lat_ref"]), float(r["lon_ref"]), [q[i] - p[i] for i in range(3)])
+        readings.append({
+            "point_id": r["id"], "epoch": "2026-11-02T06:00:00Z",
+            "u": [round(e, 5), round(n, 5)],
+            "sigma": [float(r["sigma_e"]), float(r["sigma_n"])],
+        })
+    write_json(os.path.join(HERE, "hsls03", "batch.json"), {"length_unit": "m", "readings": readings})
+
+
+if __name__ == "__main__":
+    wall()
+    slope()

@@ -1,0 +1,84 @@
+#!/usr/bin/env bash
+# Post the service demo's requests with curl against a running Kinema server, and check
+# every response's status (and a few of its fields).
+#
+#   demo-requests/service/post.sh BASE_URL TOKEN [OUT_DIR]
+#
+# BASE_URL  e.g. http://127.0.0.1:8080
+# TOKEN     an API key with the write scope (`kinema keys create --scope write`)
+# OUT_DIR   where responses and exports are written (default target/demo/service)
+#
+# Every structure, name and ID is invented (see README.md). The script can be run
+# again on the same database: structures and points are replaced (200 instead of 201)
+# and batches are replayed through their Idempotency-Key.
+set -euo pipefail
+
+here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
+base="${1:?usage: post.sh BASE_URL TOKEN [OUT_DIR]}"
+token="${2:?usage: post.sh BASE_URL TOKEN [OUT_DIR]}"
+out="${3:-$here/../../target/demo/service}"
+mkdir -p "$out"
+failures=0
+
+# call NAME EXPECTED_STATUSES METHOD PATH [curl arguments…]
+# Writes the body to OUT/NAME and the headers to OUT/NAME.headers; EXPECTED_STATUSES is
+# a |-separated list such as 201|200.
+call() {
+    local name="$1" expected="$2" method="$3" path="$4"
+    shift 4
+    local status
+    status=$(curl -sS -o "$out/$name" -D "$out/$name.headers" -w '%{http_code}' \
+        -X "$method" -H "Authorization: Bearer $token" "$@" "$base$path")
+    if [[ "|$expected|" == *"|$status|"* ]]; then
+        printf '  %-34s %s %-58s -> %s\n' "$name" "$method" "$path" "$status"
+    else
+        printf '  %-34s %s %-58s -> %s (expected %s)\n' "$name" "$method" "$path" "$status" "$expected" >&2
+        head -c 600 "$out/$name" >&2 || true
+        echo >&2
+        failures=$((failures + 1))
+    fi
+}
+
+
+# field FILE PYTHON_EXPRESSION: print a value of a JSON response (d is the document).
+field() {
+    python3 -c 'import json,sys; d=json.load(open(sys.argv[1])); print(eval(sys.argv[2]))' "$1" "$2"
+}
+
+echo "Ashcombe Lane retaining wall (ALRW-01): structure, 40 targets, seven surveys"
+call alrw01-structure.json '201|200' PUT /v1/structures/ALRW-01 \
+    -H 'Content-Type: application/json' --data-binary "@$here/alrw01/structure.json"
+call alrw01-points.json 200 PUT /v1/structures/ALRW-01/points \
+    -H 'Content-Type: application/json' --data-binary "@$here/alrw01/points.json"
+for s in S0 S1 S2 S3 S4 S5 S6; do
+    call "alrw01-batch-$s.json" 201 POST /v1/structures/ALRW-01/batches \
+        -H 'Content-Type: text/csv' -H "Idempotency-Key: alrw01-survey-$s" \
+        --data-binary "@$here/alrw01/batch-$s.csv"
+done
+echo "  a logger retrying survey S6 with the same Idempotency-Key gets the first answer again:"
+call alrw01-batch-S6-retry.json 201 POST /v1/structures/ALRW-01/batches \
+    -H 'Content-Type: text/csv' -H "Idempotency-Key: alrw01-survey-S6" \
+    --data-binary "@$here/alrw01/batch-S6.csv"
+grep -qi '^idempotent-replayed: true' "$out/alrw01-batch-S6-retry.json.headers" \
+    || { echo "  the retry was not marked Idempotent-Replayed" >&2; failures=$((failures + 1)); }
+call alrw01-epochs.json 200 GET /v1/structures/ALRW-01/epochs
+
+echo "Hollin Scar landslip (HSLS-03): East-North-Up frame, 12 GNSS antennas given in WGS84"
+call hsls03-structure.json '201|200' PUT /v1/structures/HSLS-03 \
+    -H 'Content-Type: application/json' --data-binary "@$here/hsls03/structure.json"
+call hsls03-points.json 200 PUT /v1/structures/HSLS-03/points \
+    -H 'Content-Type: application/json' --data-binary "@$here/hsls03/points.json"
+call hsls03-batch.json 201 POST /v1/structures/HSLS-03/batches \
+    -H 'Content-Type: application/json' -H "Idempotency-Key: hsls03-2026-11" \
+    --data-binary "@$here/hsls03/batch.json"
+
+echo "A reading with NaN is refused with problem details, and nothing is stored:"
+printf 'point_id,epoch,ux,uy\nALRW01-T01,2026-03-01T09:00:00Z,NaN,0.1\n' >"$out/bad-batch.csv"
+call bad-batch.json 422 POST /v1/structures/ALRW-01/batches \
+    -H 'Content-Type: text/csv' --data-binary "@$out/bad-batch.csv"
+
+if [ "$failures" -ne 0 ]; then
+    echo "post.sh: $failures request(s) did not get the expected answer" >&2
+    exit 1
+fi
+echo "post.sh: all requests answered as expected; responses in $out"
