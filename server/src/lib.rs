@@ -9,6 +9,7 @@
 //! codes and licensed practice.
 #![forbid(unsafe_code)]
 
+pub mod analysis;
 pub mod api;
 pub mod cli;
 pub mod ingest;

@@ -244,6 +244,120 @@ pub struct IdempotentBatch {
     pub response: serde_json::Value,
 }
 
+/// What an analysis computed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, ToSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum AnalysisKind {
+    /// The strain field at one epoch, relative to the reference state or to a
+    /// baseline epoch.
+    Epoch,
+}
+
+impl AnalysisKind {
+    /// `epoch`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Self::Epoch => "epoch",
+        }
+    }
+
+    /// Parse [`AnalysisKind::as_str`].
+    pub fn parse(s: &str) -> Option<Self> {
+        match s {
+            "epoch" => Some(Self::Epoch),
+            _ => None,
+        }
+    }
+}
+
+/// How an analysis ended.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, ToSchema)]
+#[serde(rename_all = "snake_case")]
+pub enum AnalysisStatus {
+    /// The estimator ran; `result` holds the document.
+    Succeeded,
+    /// The estimator could not compute on the data; `error` says why.
+    Failed,
+}
+
+impl AnalysisStatus {
+    /// `succeeded` or `failed`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Self::Succeeded => "succeeded",
+            Self::Failed => "failed",
+        }
+    }
+
+    /// Parse [`AnalysisStatus::as_str`].
+    pub fn parse(s: &str) -> Option<Self> {
+        match s {
+            "succeeded" => Some(Self::Succeeded),
+            "failed" => Some(Self::Failed),
+            _ => None,
+        }
+    }
+}
+
+/// A stored analysis of a structure.
+#[derive(Debug, Clone, PartialEq, Serialize, ToSchema)]
+pub struct Analysis {
+    /// The analysis's ID.
+    pub id: Uuid,
+    /// The structure's asset ID.
+    pub structure_id: String,
+    /// What was computed.
+    pub kind: AnalysisKind,
+    /// How it ended.
+    pub status: AnalysisStatus,
+    /// Estimator name (`delaunay`, `elements`, `groups`, `neighbourhood`, `network`).
+    pub method: String,
+    /// The epoch analysed, RFC 3339 UTC.
+    #[serde(with = "time::serde::rfc3339::option")]
+    pub epoch: Option<OffsetDateTime>,
+    /// The baseline epoch whose readings were subtracted, RFC 3339 UTC; `null` when
+    /// the displacements are from the reference coordinates.
+    #[serde(with = "time::serde::rfc3339::option")]
+    pub baseline_epoch: Option<OffsetDateTime>,
+    /// The request's method, options and units, as given.
+    #[schema(value_type = Object)]
+    pub parameters: serde_json::Value,
+    /// What went in: point counts, the epochs used, reading counts and the points left
+    /// out (with why).
+    #[schema(value_type = Object)]
+    pub inputs: serde_json::Value,
+    /// Version of Kinema that computed it.
+    pub software_version: String,
+    /// The result document (as `POST /v1/compute/strain-field` returns it) when
+    /// succeeded; left out of lists and of failed analyses.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schema(value_type = Option<Object>)]
+    pub result: Option<serde_json::Value>,
+    /// Why the estimator failed; `null` when it succeeded.
+    pub error: Option<String>,
+    /// When the analysis was run, RFC 3339 UTC.
+    #[serde(with = "time::serde::rfc3339")]
+    pub created_at: OffsetDateTime,
+    /// Time the computation took, milliseconds.
+    pub duration_ms: u64,
+}
+
+/// Which analyses of a structure to list: newest first by `(created_at, id)`.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct AnalysisQuery {
+    /// Only analyses created at or after this time.
+    pub from: Option<OffsetDateTime>,
+    /// Only analyses created before this time.
+    pub to: Option<OffsetDateTime>,
+    /// Only analyses with this status.
+    pub status: Option<AnalysisStatus>,
+    /// Only analyses after this `(created_at, id)` in the listing order (the last
+    /// item of the previous page).
+    pub after: Option<(OffsetDateTime, Uuid)>,
+    /// Most analyses returned.
+    pub limit: usize,
+}
+
 /// The current time, truncated to whole microseconds (what both databases keep).
 pub fn now_utc() -> OffsetDateTime {
     truncate_to_micros(OffsetDateTime::now_utc())

@@ -185,7 +185,7 @@ mod tests {
         for body in [
             &br#"{"points":[{"id":"A","x":[NaN,2]}]}"#[..],
             b"{",
-            b"{} x",
+            br#"{"points":[]} x"#,
         ] {
             assert!(matches!(
                 parse_json::<Doc>(body),

@@ -6,8 +6,10 @@
 //! response. Every error is an [`problem::ApiError`], mapped to problem details in one
 //! place.
 
+pub mod analyses;
 pub mod auth;
 pub mod batches;
+pub mod compute;
 pub mod extract;
 pub mod health;
 pub mod keys;
@@ -105,6 +107,8 @@ const DESCRIPTION: &str = include_str!("description.md");
         (name = "structures", description = "Monitored structures and their monitoring points"),
         (name = "readings", description = "Sensor batches (streamed, all or nothing, idempotent with Idempotency-Key), their epochs and readings"),
         (name = "keys", description = "API keys (an unrestricted admin key only)"),
+        (name = "compute", description = "Stateless strain computations; nothing is stored"),
+        (name = "analyses", description = "Analyses of a structure's readings, their history and exports"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -136,6 +140,8 @@ fn api_routes() -> OpenApiRouter<AppState> {
         .merge(structures::routes())
         .merge(batches::routes())
         .merge(keys::routes())
+        .merge(compute::routes())
+        .merge(analyses::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).

@@ -543,33 +543,48 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
         }
         None => (input::read_points(&a.points_file, &read)?, None),
     };
-    let dim = points.dimension();
-    let method = resolve_method(a, dim)?;
-    if a.use_precision && !points.all_have_sigma() {
-        return Err(usage(
-            "--use-precision needs sigma_x, sigma_y (and sigma_z in 3D) for every point",
-        ));
-    }
-    let unit = a.length_unit;
-    let weight_scale = match (a.weighting, a.weight_scale, a.radius) {
-        (Weighting::None, _, _) => None,
-        (_, Some(l), _) => Some(l),
-        (_, None, Some(r)) if method == Method::Neighbourhood => Some(r),
-        (w, None, _) => {
-            return Err(usage(format!(
-                "--weighting {} needs --weight-scale L (or --radius with --method neighbourhood)",
-                w.to_possible_value()
-                    .map(|v| v.get_name().to_owned())
-                    .unwrap_or_default()
-            )));
-        }
-    };
+    resolve_for_points(a, &points)?;
     let elements = a
         .elements
         .as_deref()
         .map(input::read_elements)
         .transpose()?;
     let groups = a.groups.as_deref().map(input::read_groups).transpose()?;
+    prepare_from(a, points, enu, elements, groups)
+}
+
+/// The flags of `kinema analyze` at their defaults, with `input` as the points-file
+/// label (it names the input in the output header; nothing is read from it). The
+/// service builds its requests from these, so that an API request and the CLI share
+/// one set of defaults.
+pub fn default_args(input: &str) -> Result<AnalyzeArgs, CliError> {
+    #[derive(clap::Parser)]
+    struct Defaults {
+        #[command(flatten)]
+        a: AnalyzeArgs,
+    }
+    use clap::Parser;
+    Defaults::try_parse_from(["kinema", "--", input])
+        .map(|d| d.a)
+        .map_err(|e| usage(format!("default analyze flags: {e}")))
+}
+
+/// The part of [`prepare`] after the input has been read: check the flags against
+/// the points, resolve the method, convert parameters to metres and fill in the
+/// header. `elements` and `groups` stand for the files named by `--elements` and
+/// `--groups` (the flags must be set, with any label, when they are given). Nothing is
+/// read or written.
+pub fn prepare_from(
+    a: &AnalyzeArgs,
+    points: Points,
+    enu: Option<EnuInfo>,
+    elements: Option<Vec<ElementRow>>,
+    groups: Option<Vec<GroupRows>>,
+) -> Result<Request, CliError> {
+    check_flags(a)?;
+    let dim = points.dimension();
+    let (method, weight_scale) = resolve_for_points(a, &points)?;
+    let unit = a.length_unit;
     let params = EstimatorParams {
         k: a.k,
         radius_m: a.radius.map(|r| unit.to_metres(r)),
@@ -611,6 +626,31 @@ pub fn prepare(a: &AnalyzeArgs) -> Result<Request, CliError> {
         header,
         enu,
     })
+}
+
+/// The method for these points and the weighting length scale (declared unit), with
+/// the checks that need the points.
+fn resolve_for_points(a: &AnalyzeArgs, points: &Points) -> Result<(Method, Option<f64>), CliError> {
+    let method = resolve_method(a, points.dimension())?;
+    if a.use_precision && !points.all_have_sigma() {
+        return Err(usage(
+            "--use-precision needs sigma_x, sigma_y (and sigma_z in 3D) for every point",
+        ));
+    }
+    let weight_scale = match (a.weighting, a.weight_scale, a.radius) {
+        (Weighting::None, _, _) => None,
+        (_, Some(l), _) => Some(l),
+        (_, None, Some(r)) if method == Method::Neighbourhood => Some(r),
+        (w, None, _) => {
+            return Err(usage(format!(
+                "--weighting {} needs --weight-scale L (or --radius with --method neighbourhood)",
+                w.to_possible_value()
+                    .map(|v| v.get_name().to_owned())
+                    .unwrap_or_default()
+            )));
+        }
+    };
+    Ok((method, weight_scale))
 }
 
 /// `--enu-origin` and `--horizontal`, checked: three finite numbers, latitude in

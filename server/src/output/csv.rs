@@ -70,7 +70,7 @@ impl<W: Write> CsvSink<W> {
 
 /// One field, in double quotes (inner quotes doubled) when it holds a comma, a quote,
 /// a line break or leading/trailing white space.
-fn write_field(out: &mut impl Write, f: &str) -> io::Result<()> {
+pub(crate) fn write_field(out: &mut impl Write, f: &str) -> io::Result<()> {
     let needs = f.contains([',', '"', '\r', '\n'])
         || f.starts_with(char::is_whitespace)
         || f.ends_with(char::is_whitespace);

@@ -20,6 +20,7 @@ use clap::ValueEnum;
 use kinema_core::estimate::Rejected;
 
 pub use self::csv::CsvSink;
+pub(crate) use self::csv::write_field;
 pub use self::json::JsonSink;
 pub use self::table::{TableSink, WIDTH_SAMPLE};
 use crate::input::Points;

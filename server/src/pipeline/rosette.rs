@@ -249,9 +249,22 @@ fn correction_parameters(c: &Corrections, unit: StrainUnit) -> Vec<(String, Cell
 /// Read and check everything for a rosette run. Nothing is written.
 pub fn prepare(a: &AnalyzeArgs) -> Result<RosetteRequest, CliError> {
     let unit = a.reading_unit.unwrap_or(DEFAULT_READING_UNIT);
+    corrections(a, unit)?;
+    StressSpec::from_flags(&a.stress_flags(), 2, a.strain_unit)?;
+    let rosettes = read_rosettes(&a.points_file, unit)?;
+    prepare_from(a, rosettes)
+}
+
+/// The part of [`prepare`] after the gauge readings have been read (readings in
+/// dimensionless strain, angles in radians): check the corrections and the stress
+/// flags and fill in the header. Nothing is read or written.
+pub fn prepare_from(
+    a: &AnalyzeArgs,
+    rosettes: Vec<RosetteRows>,
+) -> Result<RosetteRequest, CliError> {
+    let unit = a.reading_unit.unwrap_or(DEFAULT_READING_UNIT);
     let corrections = corrections(a, unit)?;
     let stress = StressSpec::from_flags(&a.stress_flags(), 2, a.strain_unit)?;
-    let rosettes = read_rosettes(&a.points_file, unit)?;
     let n_gauges: usize = rosettes.iter().map(|r| r.gauges.len()).sum();
     let mut header = Header::new(
         a.points_file.display().to_string(),

@@ -22,7 +22,10 @@ use time::OffsetDateTime;
 use uuid::Uuid;
 
 pub use self::error::StoreError;
-use crate::model::{ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint, Structure};
+use crate::model::{
+    Analysis, AnalysisQuery, ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint,
+    Structure,
+};
 
 /// Which database a store talks to.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -213,6 +216,23 @@ pub trait Store: Send + Sync + 'static {
         structure: &str,
         epoch: OffsetDateTime,
     ) -> Result<Vec<Reading>, StoreError>;
+    /// Store an analysis of structure `a.structure_id` (its ID must be new; a
+    /// succeeded analysis has a result and no error, a failed one an error and no
+    /// result). [`StoreError::NotFound`] when the structure does not exist.
+    async fn insert_analysis(&self, a: &Analysis) -> Result<(), StoreError>;
+
+    /// One analysis of `structure`, with its result document; `None` when it does not
+    /// exist or belongs to another structure.
+    async fn get_analysis(&self, structure: &str, id: Uuid)
+    -> Result<Option<Analysis>, StoreError>;
+
+    /// Analyses of `structure` matching `q`, newest first by `(created_at, id)`,
+    /// without their result documents (`result` is `None`).
+    async fn list_analyses(
+        &self,
+        structure: &str,
+        q: &AnalysisQuery,
+    ) -> Result<Vec<Analysis>, StoreError>;
 }
 
 /// A shared handle to the store chosen at start-up.

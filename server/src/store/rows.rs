@@ -8,8 +8,8 @@ use uuid::Uuid;
 
 use super::StoreError;
 use crate::model::{
-    ApiKey, Batch, Frame, IdempotentBatch, Material, Reading, Scope, StoredPoint, Structure,
-    from_unix_micros,
+    Analysis, AnalysisKind, AnalysisStatus, ApiKey, Batch, Frame, IdempotentBatch, Material,
+    Reading, Scope, StoredPoint, Structure, from_unix_micros,
 };
 use crate::units::LengthUnit;
 
@@ -243,6 +243,70 @@ impl<T: DbTime> BatchRow<T> {
     }
 }
 
+/// Columns of `analyses` (without the structure key; the structure ID joined in).
+#[derive(Debug, sqlx::FromRow)]
+pub struct AnalysisRow<T> {
+    pub id: Uuid,
+    pub structure_id: String,
+    pub kind: String,
+    pub status: String,
+    pub method: String,
+    pub epoch: Option<T>,
+    pub baseline_epoch: Option<T>,
+    pub parameters: Json<serde_json::Value>,
+    pub inputs: Json<serde_json::Value>,
+    pub software_version: String,
+    pub result: Option<Json<serde_json::Value>>,
+    pub error: Option<String>,
+    pub created_at: T,
+    pub duration_ms: i64,
+}
+
+/// The column list of [`AnalysisRow`] with the result document, for `SELECT` from
+/// `analyses a JOIN structures s` (a literal, for `concat!`).
+macro_rules! analysis_columns {
+    () => {
+        "a.id, s.id AS structure_id, a.kind, a.status, a.method, a.epoch, a.baseline_epoch, \
+         a.parameters, a.inputs, a.software_version, a.result, a.error, a.created_at, a.duration_ms"
+    };
+}
+pub(crate) use analysis_columns;
+
+/// As [`analysis_columns`] but with a NULL result (lists leave the document out).
+macro_rules! analysis_list_columns {
+    () => {
+        "a.id, s.id AS structure_id, a.kind, a.status, a.method, a.epoch, a.baseline_epoch, \
+         a.parameters, a.inputs, a.software_version, CAST(NULL AS JSONB) AS result, a.error, \
+         a.created_at, a.duration_ms"
+    };
+}
+pub(crate) use analysis_list_columns;
+
+impl<T: DbTime> AnalysisRow<T> {
+    /// Into the service's type.
+    pub fn into_analysis(self) -> Result<Analysis, StoreError> {
+        Ok(Analysis {
+            id: self.id,
+            structure_id: self.structure_id,
+            kind: AnalysisKind::parse(&self.kind)
+                .ok_or_else(|| StoreError::corrupt(format!("analysis kind {:?}", self.kind)))?,
+            status: AnalysisStatus::parse(&self.status)
+                .ok_or_else(|| StoreError::corrupt(format!("analysis status {:?}", self.status)))?,
+            method: self.method,
+            epoch: opt_time(self.epoch)?,
+            baseline_epoch: opt_time(self.baseline_epoch)?,
+            parameters: self.parameters.0,
+            inputs: self.inputs.0,
+            software_version: self.software_version,
+            result: self.result.map(|r| r.0),
+            error: self.error,
+            created_at: self.created_at.into_time()?,
+            duration_ms: u64::try_from(self.duration_ms)
+                .map_err(|_| StoreError::corrupt(format!("duration {}", self.duration_ms)))?,
+        })
+    }
+}
+
 /// A batch with its idempotency record.
 #[derive(Debug, sqlx::FromRow)]
 pub struct IdempotentRow<T> {
@@ -373,4 +437,19 @@ pub fn duplicate(point: &str, epoch: OffsetDateTime) -> StoreError {
     StoreError::Conflict(format!(
         "a reading of point {point} at epoch {t} is already stored; readings are unique per point and epoch"
     ))
+}
+/// Refuse an analysis whose status and result/error do not agree.
+pub fn check_analysis(a: &Analysis) -> Result<(), StoreError> {
+    let ok = match a.status {
+        AnalysisStatus::Succeeded => a.result.is_some() && a.error.is_none(),
+        AnalysisStatus::Failed => a.result.is_none() && a.error.is_some(),
+    };
+    if ok {
+        Ok(())
+    } else {
+        Err(StoreError::Invalid(format!(
+            "analysis {}: a succeeded analysis has a result and no error, a failed one an error and no result",
+            a.id
+        )))
+    }
 }

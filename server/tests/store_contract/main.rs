@@ -4,6 +4,7 @@
 //! Each module holds the cases of one part of the [`Store`] trait and lists them once
 //! in [`contract!`], which makes one test per case and backend.
 
+mod analyses;
 mod batches;
 mod keys;
 mod structures;

@@ -2,6 +2,7 @@
 //! Times are `timestamptz`, JSON is `jsonb`, UUIDs are `uuid`. Writes that depend on a
 //! structure lock its row (`FOR UPDATE`), so concurrent writers to one structure queue.
 
+mod analyses;
 mod batches;
 mod keys;
 mod structures;
@@ -16,7 +17,10 @@ use uuid::Uuid;
 use time::OffsetDateTime;
 
 use super::{Backend, BatchWriter, PointsWritten, Store, StoreError, Written};
-use crate::model::{ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint, Structure};
+use crate::model::{
+    Analysis, AnalysisQuery, ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint,
+    Structure,
+};
 
 /// The PostgreSQL implementation of [`Store`].
 #[derive(Debug, Clone)]
@@ -149,5 +153,25 @@ impl Store for PgStore {
         epoch: OffsetDateTime,
     ) -> Result<Vec<Reading>, StoreError> {
         batches::readings_at(&self.pool, structure, epoch).await
+    }
+
+    async fn insert_analysis(&self, a: &Analysis) -> Result<(), StoreError> {
+        analyses::insert_analysis(&self.pool, a).await
+    }
+
+    async fn get_analysis(
+        &self,
+        structure: &str,
+        id: Uuid,
+    ) -> Result<Option<Analysis>, StoreError> {
+        analyses::get_analysis(&self.pool, structure, id).await
+    }
+
+    async fn list_analyses(
+        &self,
+        structure: &str,
+        q: &AnalysisQuery,
+    ) -> Result<Vec<Analysis>, StoreError> {
+        analyses::list_analyses(&self.pool, structure, q).await
     }
 }

@@ -5,6 +5,7 @@
 //! `BEGIN IMMEDIATE` so that two writers queue on the busy timeout instead of failing
 //! when a read transaction would have to upgrade.
 
+mod analyses;
 mod batches;
 mod keys;
 mod structures;
@@ -22,7 +23,10 @@ use uuid::Uuid;
 use time::OffsetDateTime;
 
 use super::{Backend, BatchWriter, PointsWritten, Store, StoreError, Written};
-use crate::model::{ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint, Structure};
+use crate::model::{
+    Analysis, AnalysisQuery, ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint,
+    Structure,
+};
 
 /// The SQLite implementation of [`Store`].
 #[derive(Debug, Clone)]
@@ -171,5 +175,25 @@ impl Store for SqliteStore {
         epoch: OffsetDateTime,
     ) -> Result<Vec<Reading>, StoreError> {
         batches::readings_at(&self.pool, structure, epoch).await
+    }
+
+    async fn insert_analysis(&self, a: &Analysis) -> Result<(), StoreError> {
+        analyses::insert_analysis(&self.pool, a).await
+    }
+
+    async fn get_analysis(
+        &self,
+        structure: &str,
+        id: Uuid,
+    ) -> Result<Option<Analysis>, StoreError> {
+        analyses::get_analysis(&self.pool, structure, id).await
+    }
+
+    async fn list_analyses(
+        &self,
+        structure: &str,
+        q: &AnalysisQuery,
+    ) -> Result<Vec<Analysis>, StoreError> {
+        analyses::list_analyses(&self.pool, structure, q).await
     }
 }
