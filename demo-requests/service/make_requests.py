@@ -15,6 +15,11 @@ standard library only; the output is the same on every run.
   hsls03/batch.json           POST /v1/structures/HSLS-03/batches (application/json: the
                               reference epoch with zero displacement and the current one,
                               displacements along East/North/Up in m)
+  compute/gradient.json       POST /v1/compute/gradient (one measured gradient of the wall)
+  compute/strain-field.json   POST /v1/compute/strain-field (the wall's current survey,
+                              Delaunay triangles, from offline/points.csv)
+  compute/rosettes.json       POST /v1/compute/rosette (the invented Millbeck footbridge's
+                              strain-gauge rosettes, MBFB-02, from offline/rosettes.csv)
 """
 
 import csv
@@ -140,6 +145,40 @@ def slope():
     write_json(os.path.join(HERE, "hsls03", "batch.json"), {"length_unit": "m", "readings": readings})
 
 
+def compute():
+    write_json(
+        os.path.join(HERE, "compute", "gradient.json"),
+        {"gradient": [[120e-6, -35e-6], [55e-6, -40e-6]], "strain_unit": "microstrain"},
+    )
+    rows = list(csv.DictReader(open(os.path.join(OFFLINE, "points.csv"), encoding="utf-8")))
+    write_json(
+        os.path.join(HERE, "compute", "strain-field.json"),
+        {
+            "length_unit": "mm",
+            "strain_unit": "microstrain",
+            "method": {"kind": "delaunay"},
+            "points": [
+                {"id": r["id"], "x": [float(r["x"]), float(r["y"])],
+                 "u": [float(r["ux"]), float(r["uy"])],
+                 "sigma": [float(r["sigma_x"]), float(r["sigma_y"])]}
+                for r in rows
+            ],
+        },
+    )
+    rosettes = {}
+    for r in csv.DictReader(open(os.path.join(OFFLINE, "rosettes.csv"), encoding="utf-8")):
+        g = {"id": r["gauge"], "angle_deg": float(r["angle_deg"]), "reading": float(r["reading"])}
+        if r.get("zero"):
+            g["zero"] = float(r["zero"])
+        rosettes.setdefault(r["rosette"], []).append(g)
+    write_json(
+        os.path.join(HERE, "compute", "rosettes.json"),
+        {"reading_unit": "microstrain", "strain_unit": "microstrain",
+         "rosettes": [{"id": k, "gauges": v} for k, v in rosettes.items()]},
+    )
+
+
 if __name__ == "__main__":
     wall()
     slope()
+    compute()

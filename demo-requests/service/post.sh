@@ -72,6 +72,14 @@ call hsls03-batch.json 201 POST /v1/structures/HSLS-03/batches \
     -H 'Content-Type: application/json' -H "Idempotency-Key: hsls03-2026-11" \
     --data-binary "@$here/hsls03/batch.json"
 
+echo "Stateless computations (nothing stored):"
+call compute-gradient.json 200 POST /v1/compute/gradient \
+    -H 'Content-Type: application/json' --data-binary "@$here/compute/gradient.json"
+call compute-strain-field.json 200 POST /v1/compute/strain-field \
+    -H 'Content-Type: application/json' --data-binary "@$here/compute/strain-field.json"
+call compute-rosettes.json 200 POST /v1/compute/rosette \
+    -H 'Content-Type: application/json' --data-binary "@$here/compute/rosettes.json"
+
 echo "A reading with NaN is refused with problem details, and nothing is stored:"
 printf 'point_id,epoch,ux,uy\nALRW01-T01,2026-03-01T09:00:00Z,NaN,0.1\n' >"$out/bad-batch.csv"
 call bad-batch.json 422 POST /v1/structures/ALRW-01/batches \
