@@ -12,6 +12,7 @@
 pub mod error;
 pub mod postgres;
 mod rows;
+mod shared;
 pub mod sqlite;
 
 use std::collections::HashMap;

@@ -17,17 +17,25 @@ use crate::units::LengthUnit;
 pub trait DbTime: Sized {
     /// Into a UTC time.
     fn into_time(self) -> Result<OffsetDateTime, StoreError>;
+    /// From a UTC time (already truncated to microseconds).
+    fn from_time(t: OffsetDateTime) -> Self;
 }
 
 impl DbTime for OffsetDateTime {
     fn into_time(self) -> Result<OffsetDateTime, StoreError> {
         Ok(self)
     }
+    fn from_time(t: OffsetDateTime) -> Self {
+        t
+    }
 }
 
 impl DbTime for i64 {
     fn into_time(self) -> Result<OffsetDateTime, StoreError> {
         from_unix_micros(self).ok_or_else(|| StoreError::corrupt(format!("time {self} µs")))
+    }
+    fn from_time(t: OffsetDateTime) -> Self {
+        crate::model::to_unix_micros(t)
     }
 }
 

@@ -7,26 +7,17 @@
 
 mod analyses;
 mod batches;
-mod keys;
-mod structures;
+mod common;
 
 use std::str::FromStr;
 use std::time::Duration;
 
-use async_trait::async_trait;
 use sqlx::sqlite::{
     SqliteConnectOptions, SqliteJournalMode, SqlitePool, SqlitePoolOptions, SqliteSynchronous,
 };
 use sqlx::{Sqlite, Transaction};
-use uuid::Uuid;
 
-use time::OffsetDateTime;
-
-use super::{Backend, BatchWriter, PointsWritten, Store, StoreError, Written};
-use crate::model::{
-    Analysis, AnalysisQuery, ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint,
-    Structure,
-};
+use super::StoreError;
 
 /// The SQLite implementation of [`Store`].
 #[derive(Debug, Clone)]
@@ -68,132 +59,8 @@ impl SqliteStore {
     }
 }
 
-#[async_trait]
-impl Store for SqliteStore {
-    fn backend(&self) -> Backend {
-        Backend::Sqlite
-    }
-
-    async fn migrate(&self) -> Result<(), StoreError> {
-        sqlx::migrate!("../migrations/sqlite")
-            .run(&self.pool)
-            .await?;
-        Ok(())
-    }
-
-    async fn ping(&self) -> Result<(), StoreError> {
-        sqlx::query("SELECT 1").execute(&self.pool).await?;
-        Ok(())
-    }
-
-    async fn put_structure(&self, s: &Structure) -> Result<(Written, Structure), StoreError> {
-        structures::put_structure(self, s).await
-    }
-
-    async fn get_structure(&self, id: &str) -> Result<Option<Structure>, StoreError> {
-        structures::get_structure(&self.pool, id).await
-    }
-
-    async fn list_structures(
-        &self,
-        after: Option<&str>,
-        limit: usize,
-        only: Option<&[String]>,
-    ) -> Result<Vec<Structure>, StoreError> {
-        structures::list_structures(&self.pool, after, limit, only).await
-    }
-
-    async fn delete_structure(&self, id: &str) -> Result<bool, StoreError> {
-        structures::delete_structure(self, id).await
-    }
-
-    async fn put_points(
-        &self,
-        structure: &str,
-        points: &[StoredPoint],
-    ) -> Result<PointsWritten, StoreError> {
-        structures::put_points(self, structure, points).await
-    }
-
-    async fn list_points(&self, structure: &str) -> Result<Vec<StoredPoint>, StoreError> {
-        structures::list_points(&self.pool, structure).await
-    }
-
-    async fn insert_key(&self, key: &ApiKey) -> Result<(), StoreError> {
-        keys::insert_key(&self.pool, key).await
-    }
-
-    async fn key_by_hash(&self, token_sha256: &str) -> Result<Option<ApiKey>, StoreError> {
-        keys::key_by_hash(&self.pool, token_sha256).await
-    }
-
-    async fn list_keys(&self) -> Result<Vec<ApiKey>, StoreError> {
-        keys::list_keys(&self.pool).await
-    }
-
-    async fn revoke_key(&self, id: Uuid) -> Result<bool, StoreError> {
-        keys::revoke_key(&self.pool, id).await
-    }
-
-    async fn begin_batch(&self, structure: &str) -> Result<Box<dyn BatchWriter>, StoreError> {
-        batches::begin_batch(self, structure).await
-    }
-
-    async fn get_batch(&self, structure: &str, id: Uuid) -> Result<Option<Batch>, StoreError> {
-        batches::get_batch(&self.pool, structure, id).await
-    }
-
-    async fn list_batches(
-        &self,
-        structure: &str,
-        after: Option<(OffsetDateTime, Uuid)>,
-        limit: usize,
-    ) -> Result<Vec<Batch>, StoreError> {
-        batches::list_batches(&self.pool, structure, after, limit).await
-    }
-
-    async fn batch_by_idempotency_key(
-        &self,
-        structure: &str,
-        key: &str,
-    ) -> Result<Option<IdempotentBatch>, StoreError> {
-        batches::batch_by_idempotency_key(&self.pool, structure, key).await
-    }
-
-    async fn list_epochs(
-        &self,
-        structure: &str,
-        from: Option<OffsetDateTime>,
-        to: Option<OffsetDateTime>,
-    ) -> Result<Vec<EpochSummary>, StoreError> {
-        batches::list_epochs(&self.pool, structure, from, to).await
-    }
-
-    async fn readings_at(
-        &self,
-        structure: &str,
-        epoch: OffsetDateTime,
-    ) -> Result<Vec<Reading>, StoreError> {
-        batches::readings_at(&self.pool, structure, epoch).await
-    }
-
-    async fn insert_analysis(&self, a: &Analysis) -> Result<(), StoreError> {
-        analyses::insert_analysis(&self.pool, a).await
-    }
-
-    async fn get_analysis(
-        &self,
-        structure: &str,
-        id: Uuid,
-    ) -> Result<Option<Analysis>, StoreError> {
-        analyses::get_analysis(&self.pool, structure, id).await
-    }
-
-    async fn list_analyses(
-        &self,
-        structure: &str,
-        q: &AnalysisQuery,
-    ) -> Result<Vec<Analysis>, StoreError> {
-        analyses::list_analyses(&self.pool, structure, q).await
-    }
-}
+crate::store::shared::impl_store!(
+    store = SqliteStore,
+    backend = Backend::Sqlite,
+    migrations = "../migrations/sqlite",
+);

@@ -1,0 +1,465 @@
+//! The SQL that is the same on both databases, written once: each backend's module
+//! expands these macros with its own types (database, pool, how it keeps a time) and
+//! the few words of SQL that differ.
+//!
+//! - `lock`: appended to the structure lookup of a write: `""` for SQLite (its write
+//!   transactions are `BEGIN IMMEDIATE` already), `" FOR UPDATE"` for PostgreSQL;
+//! - `json_ids`: a subquery head that turns a bound JSON array of strings into rows:
+//!   `"SELECT value FROM json_each("` (SQLite), `"SELECT jsonb_array_elements_text("`
+//!   (PostgreSQL).
+//!
+//! Every store type provides `write_tx()`, the transaction a write starts with.
+
+/// Structures, monitoring points and API keys for one backend.
+macro_rules! common_sql {
+    (
+        store = $Store:ty,
+        db = $Db:ty,
+        pool = $Pool:ty,
+        time = $Time:ty,
+        lock = $lock:literal,
+        json_ids = $json_ids:literal $(,)?
+    ) => {
+        use sqlx::types::Json;
+        use sqlx::QueryBuilder;
+        use uuid::Uuid;
+
+        use $crate::model::{ApiKey, StoredPoint, Structure, now_utc};
+        use $crate::store::rows::{
+            DbTime, KeyRow, PointRow, StructureRow, check_point, key_columns, point_columns,
+            point_values, structure_columns,
+        };
+        use $crate::store::{PointsWritten, StoreError, Written};
+
+        /// The internal key, dimension and point count of structure `id`.
+        async fn lookup<'e, E>(ex: E, id: &str) -> Result<Option<(i64, i16, i64)>, StoreError>
+        where
+            E: sqlx::Executor<'e, Database = $Db>,
+        {
+            Ok(sqlx::query_as(concat!(
+                "SELECT s.key, s.dimension, (SELECT count(*) FROM points p WHERE p.structure_key = s.key) \
+                 FROM structures s WHERE s.id = $1",
+                $lock
+            ))
+            .bind(id)
+            .fetch_optional(ex)
+            .await?)
+        }
+
+        pub(super) async fn put_structure(
+            store: &$Store,
+            s: &Structure,
+        ) -> Result<(Written, Structure), StoreError> {
+            let mut tx = store.write_tx().await?;
+            let existing = lookup(&mut *tx, &s.id).await?;
+            let written = match existing {
+                Some((key, dim, n_points)) => {
+                    if i16::from(s.dimension) != dim && n_points > 0 {
+                        return Err(StoreError::Conflict(format!(
+                            "structure {} has {n_points} points in {dim}D; its dimension cannot change to {}D",
+                            s.id, s.dimension
+                        )));
+                    }
+                    sqlx::query(
+                        "UPDATE structures SET name = $1, dimension = $2, frame = $3, length_unit = $4, \
+                         material = $5, metadata = $6, updated_at = $7 WHERE key = $8",
+                    )
+                    .bind(&s.name)
+                    .bind(i16::from(s.dimension))
+                    .bind(Json(&s.frame))
+                    .bind(s.length_unit.label())
+                    .bind(s.material.as_ref().map(Json))
+                    .bind(Json(&s.metadata))
+                    .bind(<$Time as DbTime>::from_time(s.updated_at))
+                    .bind(key)
+                    .execute(&mut *tx)
+                    .await?;
+                    Written::Updated
+                }
+                None => {
+                    sqlx::query(
+                        "INSERT INTO structures (id, name, dimension, frame, length_unit, material, \
+                         metadata, created_at, updated_at) VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9)",
+                    )
+                    .bind(&s.id)
+                    .bind(&s.name)
+                    .bind(i16::from(s.dimension))
+                    .bind(Json(&s.frame))
+                    .bind(s.length_unit.label())
+                    .bind(s.material.as_ref().map(Json))
+                    .bind(Json(&s.metadata))
+                    .bind(<$Time as DbTime>::from_time(s.created_at))
+                    .bind(<$Time as DbTime>::from_time(s.updated_at))
+                    .execute(&mut *tx)
+                    .await?;
+                    Written::Created
+                }
+            };
+            let stored = get_structure(&mut *tx, &s.id)
+                .await?
+                .ok_or_else(|| StoreError::corrupt("structure vanished inside its transaction"))?;
+            tx.commit().await?;
+            Ok((written, stored))
+        }
+
+        pub(super) async fn get_structure<'e, E>(ex: E, id: &str) -> Result<Option<Structure>, StoreError>
+        where
+            E: sqlx::Executor<'e, Database = $Db>,
+        {
+            sqlx::query_as::<_, StructureRow<$Time>>(concat!(
+                "SELECT ",
+                structure_columns!(),
+                " FROM structures s WHERE s.id = $1"
+            ))
+            .bind(id)
+            .fetch_optional(ex)
+            .await?
+            .map(StructureRow::into_structure)
+            .transpose()
+        }
+
+        pub(super) async fn list_structures(
+            pool: &$Pool,
+            after: Option<&str>,
+            limit: usize,
+            only: Option<&[String]>,
+        ) -> Result<Vec<Structure>, StoreError> {
+            let mut q = QueryBuilder::<$Db>::new(concat!(
+                "SELECT ",
+                structure_columns!(),
+                " FROM structures s WHERE 1 = 1"
+            ));
+            if let Some(after) = after {
+                q.push(" AND s.id > ").push_bind(after.to_owned());
+            }
+            if let Some(only) = only {
+                q.push(concat!(" AND s.id IN (", $json_ids))
+                    .push_bind(Json(only.to_vec()))
+                    .push("))");
+            }
+            q.push(" ORDER BY s.id LIMIT ")
+                .push_bind(i64::try_from(limit).unwrap_or(i64::MAX));
+            q.build_query_as::<StructureRow<$Time>>()
+                .fetch_all(pool)
+                .await?
+                .into_iter()
+                .map(StructureRow::into_structure)
+                .collect()
+        }
+
+        pub(super) async fn delete_structure(store: &$Store, id: &str) -> Result<bool, StoreError> {
+            let mut tx = store.write_tx().await?;
+            let Some((key, _, _)) = lookup(&mut *tx, id).await? else {
+                return Ok(false);
+            };
+            for &sql in DELETE_CHILDREN {
+                sqlx::query(sql).bind(key).execute(&mut *tx).await?;
+            }
+            sqlx::query("DELETE FROM structures WHERE key = $1")
+                .bind(key)
+                .execute(&mut *tx)
+                .await?;
+            tx.commit().await?;
+            Ok(true)
+        }
+
+        /// Statements that delete a structure's rows in tables without a cascading foreign key
+        /// (each binds the structure's internal key as `$1`), run before the structure row.
+        pub(super) const DELETE_CHILDREN: &[&str] = &[
+            // Readings have no foreign keys (ingestion speed; see 0002_batches_readings.sql).
+            "DELETE FROM readings WHERE structure_key = $1",
+        ];
+
+        pub(super) async fn put_points(
+            store: &$Store,
+            structure: &str,
+            points: &[StoredPoint],
+        ) -> Result<PointsWritten, StoreError> {
+            let mut tx = store.write_tx().await?;
+            let (key, dim, before) = lookup(&mut *tx, structure)
+                .await?
+                .ok_or_else(|| StoreError::NotFound(format!("structure {structure} does not exist")))?;
+            for p in points {
+                check_point(p, dim)?;
+                let (x, y, z, sx, sy, sz) = point_values(p);
+                sqlx::query(
+                    "INSERT INTO points (structure_key, id, x, y, z, sigma_x, sigma_y, sigma_z) \
+                     VALUES ($1, $2, $3, $4, $5, $6, $7, $8) \
+                     ON CONFLICT (structure_key, id) DO UPDATE SET x = excluded.x, y = excluded.y, \
+                     z = excluded.z, sigma_x = excluded.sigma_x, sigma_y = excluded.sigma_y, \
+                     sigma_z = excluded.sigma_z",
+                )
+                .bind(key)
+                .bind(&p.id)
+                .bind(x)
+                .bind(y)
+                .bind(z)
+                .bind(sx)
+                .bind(sy)
+                .bind(sz)
+                .execute(&mut *tx)
+                .await?;
+            }
+            let (_, _, after) = lookup(&mut *tx, structure)
+                .await?
+                .ok_or_else(|| StoreError::corrupt("structure vanished inside its transaction"))?;
+            tx.commit().await?;
+            let created = u64::try_from(after - before).unwrap_or(0);
+            Ok(PointsWritten {
+                created,
+                updated: points.len() as u64 - created,
+            })
+        }
+
+        pub(super) async fn list_points(
+            pool: &$Pool,
+            structure: &str,
+        ) -> Result<Vec<StoredPoint>, StoreError> {
+            let found: Option<(i64, i16)> =
+                sqlx::query_as("SELECT s.key, s.dimension FROM structures s WHERE s.id = $1")
+                    .bind(structure)
+                    .fetch_optional(pool)
+                    .await?;
+            let Some((key, dim)) = found else {
+                return Err(StoreError::NotFound(format!(
+                    "structure {structure} does not exist"
+                )));
+            };
+            let dim = u8::try_from(dim).map_err(StoreError::corrupt)?;
+            sqlx::query_as::<_, PointRow>(concat!(
+                "SELECT ",
+                point_columns!(),
+                " FROM points p WHERE p.structure_key = $1 ORDER BY p.id"
+            ))
+            .bind(key)
+            .fetch_all(pool)
+            .await?
+            .into_iter()
+            .map(|r| r.into_point(dim))
+            .collect()
+        }
+
+        pub(super) async fn insert_key(pool: &$Pool, k: &ApiKey) -> Result<(), StoreError> {
+            sqlx::query(
+                "INSERT INTO api_keys (id, label, prefix, token_sha256, scope, structures, created_at, \
+                 revoked_at) VALUES ($1, $2, $3, $4, $5, $6, $7, $8)",
+            )
+            .bind(k.id)
+            .bind(&k.label)
+            .bind(&k.prefix)
+            .bind(&k.token_sha256)
+            .bind(k.scope.as_str())
+            .bind(k.structures.as_ref().map(Json))
+            .bind(<$Time as DbTime>::from_time(k.created_at))
+            .bind(k.revoked_at.map(<$Time as DbTime>::from_time))
+            .execute(pool)
+            .await?;
+            Ok(())
+        }
+
+        pub(super) async fn key_by_hash(
+            pool: &$Pool,
+            token_sha256: &str,
+        ) -> Result<Option<ApiKey>, StoreError> {
+            sqlx::query_as::<_, KeyRow<$Time>>(concat!(
+                "SELECT ",
+                key_columns!(),
+                " FROM api_keys WHERE token_sha256 = $1"
+            ))
+            .bind(token_sha256)
+            .fetch_optional(pool)
+            .await?
+            .map(KeyRow::into_key)
+            .transpose()
+        }
+
+        pub(super) async fn list_keys(pool: &$Pool) -> Result<Vec<ApiKey>, StoreError> {
+            sqlx::query_as::<_, KeyRow<$Time>>(concat!(
+                "SELECT ",
+                key_columns!(),
+                " FROM api_keys ORDER BY created_at, id"
+            ))
+            .fetch_all(pool)
+            .await?
+            .into_iter()
+            .map(KeyRow::into_key)
+            .collect()
+        }
+
+        pub(super) async fn revoke_key(pool: &$Pool, id: Uuid) -> Result<bool, StoreError> {
+            let done =
+                sqlx::query("UPDATE api_keys SET revoked_at = $1 WHERE id = $2 AND revoked_at IS NULL")
+                    .bind(<$Time as DbTime>::from_time(now_utc()))
+                    .bind(id)
+                    .execute(pool)
+                    .await?;
+            Ok(done.rows_affected() == 1)
+        }
+    };
+}
+
+pub(crate) use common_sql;
+
+/// The `Store` implementation of one backend: every method delegates to the backend's
+/// `common`, `batches` and `analyses` modules, which have the same function names and
+/// signatures in both backends.
+macro_rules! impl_store {
+    (store = $Store:ty, backend = $backend:expr, migrations = $migrations:literal $(,)?) => {
+        // In a block of its own, so that its imports do not clash with the module's.
+        const _: () = {
+            use time::OffsetDateTime;
+            use uuid::Uuid;
+            use $crate::model::{
+                Analysis, AnalysisQuery, ApiKey, Batch, EpochSummary, IdempotentBatch, Reading,
+                StoredPoint, Structure,
+            };
+            use $crate::store::{Backend, BatchWriter, PointsWritten, StoreError, Written};
+
+            #[async_trait::async_trait]
+            impl $crate::store::Store for $Store {
+                fn backend(&self) -> Backend {
+                    $backend
+                }
+
+                async fn migrate(&self) -> Result<(), StoreError> {
+                    sqlx::migrate!($migrations).run(&self.pool).await?;
+                    Ok(())
+                }
+
+                async fn ping(&self) -> Result<(), StoreError> {
+                    sqlx::query("SELECT 1").execute(&self.pool).await?;
+                    Ok(())
+                }
+
+                async fn put_structure(
+                    &self,
+                    s: &Structure,
+                ) -> Result<(Written, Structure), StoreError> {
+                    common::put_structure(self, s).await
+                }
+
+                async fn get_structure(&self, id: &str) -> Result<Option<Structure>, StoreError> {
+                    common::get_structure(&self.pool, id).await
+                }
+
+                async fn list_structures(
+                    &self,
+                    after: Option<&str>,
+                    limit: usize,
+                    only: Option<&[String]>,
+                ) -> Result<Vec<Structure>, StoreError> {
+                    common::list_structures(&self.pool, after, limit, only).await
+                }
+
+                async fn delete_structure(&self, id: &str) -> Result<bool, StoreError> {
+                    common::delete_structure(self, id).await
+                }
+
+                async fn put_points(
+                    &self,
+                    structure: &str,
+                    points: &[StoredPoint],
+                ) -> Result<PointsWritten, StoreError> {
+                    common::put_points(self, structure, points).await
+                }
+
+                async fn list_points(
+                    &self,
+                    structure: &str,
+                ) -> Result<Vec<StoredPoint>, StoreError> {
+                    common::list_points(&self.pool, structure).await
+                }
+
+                async fn insert_key(&self, key: &ApiKey) -> Result<(), StoreError> {
+                    common::insert_key(&self.pool, key).await
+                }
+
+                async fn key_by_hash(
+                    &self,
+                    token_sha256: &str,
+                ) -> Result<Option<ApiKey>, StoreError> {
+                    common::key_by_hash(&self.pool, token_sha256).await
+                }
+
+                async fn list_keys(&self) -> Result<Vec<ApiKey>, StoreError> {
+                    common::list_keys(&self.pool).await
+                }
+
+                async fn revoke_key(&self, id: Uuid) -> Result<bool, StoreError> {
+                    common::revoke_key(&self.pool, id).await
+                }
+
+                async fn begin_batch(
+                    &self,
+                    structure: &str,
+                ) -> Result<Box<dyn BatchWriter>, StoreError> {
+                    batches::begin_batch(self, structure).await
+                }
+
+                async fn get_batch(
+                    &self,
+                    structure: &str,
+                    id: Uuid,
+                ) -> Result<Option<Batch>, StoreError> {
+                    batches::get_batch(&self.pool, structure, id).await
+                }
+
+                async fn list_batches(
+                    &self,
+                    structure: &str,
+                    after: Option<(OffsetDateTime, Uuid)>,
+                    limit: usize,
+                ) -> Result<Vec<Batch>, StoreError> {
+                    batches::list_batches(&self.pool, structure, after, limit).await
+                }
+
+                async fn batch_by_idempotency_key(
+                    &self,
+                    structure: &str,
+                    key: &str,
+                ) -> Result<Option<IdempotentBatch>, StoreError> {
+                    batches::batch_by_idempotency_key(&self.pool, structure, key).await
+                }
+
+                async fn list_epochs(
+                    &self,
+                    structure: &str,
+                    from: Option<OffsetDateTime>,
+                    to: Option<OffsetDateTime>,
+                ) -> Result<Vec<EpochSummary>, StoreError> {
+                    batches::list_epochs(&self.pool, structure, from, to).await
+                }
+
+                async fn readings_at(
+                    &self,
+                    structure: &str,
+                    epoch: OffsetDateTime,
+                ) -> Result<Vec<Reading>, StoreError> {
+                    batches::readings_at(&self.pool, structure, epoch).await
+                }
+
+                async fn insert_analysis(&self, a: &Analysis) -> Result<(), StoreError> {
+                    analyses::insert_analysis(&self.pool, a).await
+                }
+
+                async fn get_analysis(
+                    &self,
+                    structure: &str,
+                    id: Uuid,
+                ) -> Result<Option<Analysis>, StoreError> {
+                    analyses::get_analysis(&self.pool, structure, id).await
+                }
+
+                async fn list_analyses(
+                    &self,
+                    structure: &str,
+                    q: &AnalysisQuery,
+                ) -> Result<Vec<Analysis>, StoreError> {
+                    analyses::list_analyses(&self.pool, structure, q).await
+                }
+            }
+        };
+    };
+}
+
+pub(crate) use impl_store;
