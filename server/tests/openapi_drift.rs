@@ -22,7 +22,10 @@ fn committed_openapi_matches_the_code() {
             .lines()
             .zip(generated.lines())
             .position(|(a, b)| a != b)
-            .map_or_else(|| on_disk.lines().count().min(generated.lines().count()), |i| i);
+            .map_or_else(
+                || on_disk.lines().count().min(generated.lines().count()),
+                |i| i,
+            );
         panic!(
             "openapi/kinema.json differs from the code's document from line {} on.\n\
              Regenerate it: cargo run -p kinema-server -- openapi > openapi/kinema.json",
@@ -36,12 +39,18 @@ fn every_schema_property_has_a_description() {
     let doc: serde_json::Value =
         serde_json::from_str(&kinema_server::api::openapi_json()).expect("JSON");
     let mut missing = Vec::new();
-    if let Some(schemas) = doc.pointer("/components/schemas").and_then(|s| s.as_object()) {
+    if let Some(schemas) = doc
+        .pointer("/components/schemas")
+        .and_then(|s| s.as_object())
+    {
         for (name, schema) in schemas {
             walk(name, schema, &mut missing);
         }
     }
-    assert!(missing.is_empty(), "properties without a description: {missing:#?}");
+    assert!(
+        missing.is_empty(),
+        "properties without a description: {missing:#?}"
+    );
 }
 
 /// Collect `schema.property` paths whose property has neither a description nor a
@@ -57,8 +66,10 @@ fn walk(at: &str, schema: &serde_json::Value, missing: &mut Vec<String>) {
             let described = is_tag
                 || v.get("description").is_some()
                 || v.get("$ref").is_some()
-                || v.get("allOf").is_some_and(|a| a.to_string().contains("$ref"))
-                || v.get("oneOf").is_some_and(|a| a.to_string().contains("$ref"));
+                || v.get("allOf")
+                    .is_some_and(|a| a.to_string().contains("$ref"))
+                || v.get("oneOf")
+                    .is_some_and(|a| a.to_string().contains("$ref"));
             if !described {
                 missing.push(format!("{at}.{k}"));
             }

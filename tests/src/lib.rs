@@ -6,6 +6,8 @@
 //! failure, never a silent skip.
 
 pub mod db;
+pub mod http;
+pub mod server;
 
 use std::io::Write;
 use std::path::PathBuf;
