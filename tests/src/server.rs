@@ -223,6 +223,7 @@ pub struct Server {
     /// Where it listens.
     pub addr: SocketAddr,
     stderr: Arc<Mutex<String>>,
+    stderr_reader: Option<std::thread::JoinHandle<()>>,
     exited: Option<ExitStatus>,
 }
 
@@ -253,16 +254,17 @@ impl Server {
             .spawn()
             .expect("start kinema serve");
         let stderr = Arc::new(Mutex::new(String::new()));
+        let mut stderr_reader = None;
         if let Some(err) = child.stderr.take() {
             let sink = stderr.clone();
-            std::thread::spawn(move || {
+            stderr_reader = Some(std::thread::spawn(move || {
                 for line in BufReader::new(err).lines().map_while(Result::ok) {
                     if let Ok(mut s) = sink.lock() {
                         s.push_str(&line);
                         s.push('\n');
                     }
                 }
-            });
+            }));
         }
         let (tx, rx) = mpsc::channel();
         if let Some(out) = child.stdout.take() {
@@ -276,6 +278,7 @@ impl Server {
             child,
             addr: SocketAddr::from(([127, 0, 0, 1], 0)),
             stderr,
+            stderr_reader,
             exited: None,
         };
         let deadline = Instant::now() + START_TIMEOUT;
@@ -317,6 +320,19 @@ impl Server {
     /// Everything the server wrote to stderr so far (its log lines).
     pub fn stderr(&self) -> String {
         self.stderr.lock().map(|s| s.clone()).unwrap_or_default()
+    }
+
+    /// Everything the server wrote to stderr, once it has exited (waits for the end of
+    /// the stream).
+    ///
+    /// # Panics
+    /// When the process is still running.
+    pub fn stderr_after_exit(&mut self) -> String {
+        assert!(!self.running(), "the server is still running");
+        if let Some(h) = self.stderr_reader.take() {
+            let _ = h.join();
+        }
+        self.stderr()
     }
 
     /// Send `req` to the server.
