@@ -72,6 +72,9 @@ async fn malformed_json_is_400(b: Backend) {
         "not json",
         "",
         trailing.as_str(),
+        // Not JSON, even though a field is missing before the parser reaches the end.
+        "{\"name\": \"x\"} trailing",
+        "{\"name\": 1, \"dimension\": NaN}",
     ] {
         let r = app
             .raw(Method::PUT, PATH, &t, "application/json", body.to_owned())

@@ -22,10 +22,7 @@ fn committed_openapi_matches_the_code() {
             .lines()
             .zip(generated.lines())
             .position(|(a, b)| a != b)
-            .map_or_else(
-                || on_disk.lines().count().min(generated.lines().count()),
-                |i| i,
-            );
+            .unwrap_or_else(|| on_disk.lines().count().min(generated.lines().count()));
         panic!(
             "openapi/kinema.json differs from the code's document from line {} on.\n\
              Regenerate it: cargo run -p kinema-server -- openapi > openapi/kinema.json",

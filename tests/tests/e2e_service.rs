@@ -20,6 +20,7 @@ e2e!(
     structures_and_points_over_http,
     sigterm_lets_the_request_in_flight_finish,
     json_log_lines_on_stderr,
+    text_log_lines_have_no_colour_codes_when_piped,
 );
 
 /// Versions of the migration files for the backend (`migrations/<backend>/NNNN_*.sql`).
@@ -371,6 +372,19 @@ fn json_log_lines_on_stderr(db: &TestDb) {
     assert!(
         messages.iter().any(|m| m == "kinema stopped"),
         "{messages:?}"
+    );
+}
+
+fn text_log_lines_have_no_colour_codes_when_piped(db: &TestDb) {
+    let mut server = Server::start(&db.url);
+    server.sigterm();
+    let status = server.wait_exit(Duration::from_secs(20)).expect("exits");
+    assert_eq!(status.code(), Some(0));
+    let log = server.stderr_after_exit();
+    assert!(log.contains("kinema serving"), "{log}");
+    assert!(
+        !log.contains('\u{1b}'),
+        "ANSI escape codes in piped logs:\n{log:?}"
     );
 }
 
