@@ -171,6 +171,21 @@ impl Pending {
     }
 }
 
+impl Pending {
+    /// Read the response without sending the rest of the body (for a server that
+    /// answers before the body is complete, e.g. on a timeout).
+    ///
+    /// # Panics
+    /// When the connection fails or the response is not HTTP/1.1.
+    pub fn finish_without_body(&mut self) -> Response {
+        let mut raw = Vec::new();
+        self.stream
+            .read_to_end(&mut raw)
+            .expect("read the response");
+        parse(&raw)
+    }
+}
+
 /// Parse a whole HTTP/1.1 response.
 fn parse(raw: &[u8]) -> Response {
     let split = raw

@@ -21,6 +21,7 @@ e2e!(
     sigterm_lets_the_request_in_flight_finish,
     json_log_lines_on_stderr,
     text_log_lines_have_no_colour_codes_when_piped,
+    limits_from_flags_apply,
 );
 
 /// Versions of the migration files for the backend (`migrations/<backend>/NNNN_*.sql`).
@@ -386,6 +387,62 @@ fn text_log_lines_have_no_colour_codes_when_piped(db: &TestDb) {
         !log.contains('\u{1b}'),
         "ANSI escape codes in piped logs:\n{log:?}"
     );
+}
+
+fn limits_from_flags_apply(db: &TestDb) {
+    let server = Server::start_with(
+        &db.url,
+        &[
+            "--max-body-bytes",
+            "600",
+            "--max-points",
+            "2",
+            "--request-timeout-secs",
+            "1",
+        ],
+    );
+    let key = create_key(&db.url, "write", &[]);
+    let t = key.token.as_str();
+    let wall =
+        json!({"name": "Wall", "dimension": 2, "frame": {"kind": "local"}, "length_unit": "m"});
+    let r = server.send(
+        &Request::new("PUT", "/v1/structures/W")
+            .bearer(t)
+            .json(&wall),
+    );
+    assert_eq!(r.status, 201);
+    let pts = |n: usize| {
+        let p: Vec<_> = (0..n)
+            .map(|i| json!({"id": format!("P{i}"), "x": [i, 0]}))
+            .collect();
+        json!({ "points": p })
+    };
+    let put = |body: &serde_json::Value| {
+        server.send(
+            &Request::new("PUT", "/v1/structures/W/points")
+                .bearer(t)
+                .json(body),
+        )
+    };
+    assert_eq!(put(&pts(2)).status, 200);
+    let r = put(&pts(3));
+    assert_eq!(r.status, 413, "more points than --max-points");
+    assert!(r.text().contains("KINEMA_MAX_POINTS"));
+    let big = pts(40);
+    assert!(big.to_string().len() > 600);
+    let r = put(&big);
+    assert_eq!(r.status, 413, "a body over --max-body-bytes");
+    assert_eq!(r.header("content-type"), Some("application/problem+json"));
+    // A request whose body stops coming is answered with 408 after the timeout.
+    let req = Request::new("PUT", "/v1/structures/W/points")
+        .bearer(t)
+        .json(&pts(1));
+    let started = std::time::Instant::now();
+    let mut pending = req.send_part(server.addr, 3);
+    let r = pending.finish_without_body();
+    assert_eq!(r.status, 408, "{}", r.text());
+    assert!(started.elapsed() >= Duration::from_millis(900));
+    assert_eq!(r.header("content-type"), Some("application/problem+json"));
 }
 
 /// Readiness follows the database: a PostgreSQL database dropped under a running
