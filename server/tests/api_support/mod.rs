@@ -26,28 +26,26 @@ pub enum Backend {
     Postgres,
 }
 
-/// What keeps a test database alive; the PostgreSQL schema is dropped on drop.
+/// What keeps a test database alive (PostgreSQL schemas are dropped by [`cleanup`]).
 enum Guard {
     Sqlite(#[allow(dead_code)] tempfile::TempDir),
-    Postgres(Option<PgSchema>),
+    Postgres,
 }
 
-impl Drop for Guard {
-    fn drop(&mut self) {
-        if let Self::Postgres(s) = self
-            && let Some(s) = s.take()
-        {
-            // Drop runs inside the test's runtime: finish the async drop on a thread.
-            let _ = std::thread::spawn(move || {
-                if let Ok(rt) = tokio::runtime::Builder::new_current_thread()
-                    .enable_all()
-                    .build()
-                {
-                    rt.block_on(s.drop_schema());
-                }
-            })
-            .join();
-        }
+thread_local! {
+    /// PostgreSQL schemas made by this test (tokio's test runtime runs the test on its
+    /// own thread), dropped by [`cleanup`].
+    static SCHEMAS: std::cell::RefCell<Vec<PgSchema>> = const { std::cell::RefCell::new(Vec::new()) };
+}
+
+/// Drop the PostgreSQL schemas this test made. It runs after the case, in the test's
+/// runtime, so that the store's connections can finish returning to their pool (and
+/// roll back what they held) while the drop waits for its lock; a blocking drop would
+/// wait for them forever.
+pub async fn cleanup() {
+    let list = SCHEMAS.with(|s| std::mem::take(&mut *s.borrow_mut()));
+    for s in list {
+        s.drop_schema().await;
     }
 }
 
@@ -130,7 +128,9 @@ impl App {
             }
             Backend::Postgres => {
                 let s = PgSchema::create("api").await;
-                (s.url.clone(), Guard::Postgres(Some(s)))
+                let url = s.url.clone();
+                SCHEMAS.with(|list| list.borrow_mut().push(s));
+                (url, Guard::Postgres)
             }
         };
         let store = store::open(&url).await.expect("open the store");
@@ -254,6 +254,7 @@ macro_rules! api_case {
                 #[tokio::test]
                 async fn $case() {
                     super::$case($crate::api_support::Backend::Postgres).await;
+                    $crate::api_support::cleanup().await;
                 }
             )*
         }
