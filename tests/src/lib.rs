@@ -4,8 +4,14 @@
 //! interpreter. [`python`] finds it: `KINEMA_PYTHON` if set, else the workspace's
 //! `.venv/bin/python` (made by `scripts/test`). A missing interpreter is a loud test
 //! failure, never a silent skip.
+//!
+//! End-to-end tests start the real `kinema` binary ([`server`]) and talk to it over
+//! plain HTTP ([`http`]), each case on an SQLite file and on a PostgreSQL schema
+//! ([`e2e!`]).
 
 pub mod db;
+pub mod http;
+pub mod server;
 
 use std::io::Write;
 use std::path::PathBuf;

@@ -78,6 +78,11 @@ pub fn body_error(text: &str) -> ApiError {
 pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
     let mut de = serde_json::Deserializer::from_slice(bytes);
     let value = serde_path_to_error::deserialize(&mut de).map_err(|e| {
+        // A body that is not JSON at all is malformed (400) even when a field error
+        // comes first (`{} x` misses a field before the trailing text is reached).
+        if let Err(syntax) = serde_json::from_slice::<serde::de::IgnoredAny>(bytes) {
+            return json_error(&syntax, String::new());
+        }
         let pointer = pointer_of(e.path());
         let inner = e.into_inner();
         json_error(&inner, pointer)

@@ -131,8 +131,11 @@ pub fn init_tracing(format: LogFormat) {
     let filter = EnvFilter::try_from_env("KINEMA_LOG")
         .or_else(|_| EnvFilter::try_from_default_env())
         .unwrap_or_else(|_| EnvFilter::new("info"));
+    // Colours only on a terminal: piped logs (containers, files) stay plain text.
+    let ansi = std::io::IsTerminal::is_terminal(&std::io::stderr());
     let builder = tracing_subscriber::fmt()
         .with_env_filter(filter)
+        .with_ansi(ansi)
         .with_writer(std::io::stderr);
     let _ = match format {
         LogFormat::Json => builder.json().try_init(),
