@@ -382,8 +382,30 @@ async fn scenario(store: DynStore) {
         "{r}"
     );
 
+    // A group weighted by the points' stated sigma: the slope is still exact.
+    let (s, a_el) = analyse(
+        &app,
+        &writer,
+        "W1",
+        json!({"kind": "series", "to": epoch(30), "strain_unit": "strain",
+               "method": {"kind": "groups", "groups": [
+                   {"name": "corner", "point_ids": ["P00", "P01", "P10", "P11"]}]},
+               "options": {"use_precision": true}}),
+    )
+    .await;
+    assert_eq!(s, StatusCode::CREATED, "{a_el}");
+    let r = a_el["result"]["rates"]
+        .as_array()
+        .expect("rates")
+        .iter()
+        .find(|r| r["component"] == "eyy")
+        .expect("rate")
+        .clone();
+    assert_eq!(r["weighted"], true, "{r}");
+    assert!(close(&r["rate_strain_per_day"], RATE[1][1]), "{r}");
+
     let stored = count(&app, &reader, "W1").await;
-    assert_eq!(stored, 5);
+    assert_eq!(stored, 6);
 
     // Bad requests: 422 with a pointer, nothing stored.
     let bad = [
@@ -414,6 +436,12 @@ async fn scenario(store: DynStore) {
             json!({"kind": "epoch", "epoch": epoch(10), "method": {"kind": "delaunay"},
                    "options": {"alpha": 1.5}}),
             "/options/alpha",
+        ),
+        (
+            json!({"kind": "series", "options": {"use_precision": true},
+                   "method": {"kind": "elements", "elements": [
+                {"id": "T1", "vertices": ["P00", "P10", "P01"]}]}}),
+            "/options/use_precision",
         ),
         (
             json!({"kind": "series", "method": {"kind": "delaunay"}}),
@@ -478,15 +506,15 @@ async fn scenario(store: DynStore) {
     assert_eq!(s, StatusCode::OK);
     let list = json_of(&b);
     let items = list["items"].as_array().expect("items");
-    assert_eq!(items[0]["id"], a_rng["id"]);
+    assert_eq!(items[0]["id"], a_el["id"]);
     assert!(items.iter().all(|i| i.get("result").is_none()));
     assert_eq!(
         items.iter().filter(|i| i["kind"] == "series").count(),
-        2,
+        3,
         "{list}"
     );
     // Read back one by one.
-    for a in [&a_ref, &a_base, &a_net, &a_ser, &a_rng] {
+    for a in [&a_ref, &a_base, &a_net, &a_ser, &a_rng, &a_el] {
         let path = format!(
             "/v1/structures/W1/analyses/{}",
             a["id"].as_str().expect("id")
