@@ -251,13 +251,17 @@ pub enum AnalysisKind {
     /// The strain field at one epoch, relative to the reference state or to a
     /// baseline epoch.
     Epoch,
+    /// The strain of fixed regions followed through the epochs of a time range:
+    /// cumulative strain from a baseline epoch, increments and rates.
+    Series,
 }
 
 impl AnalysisKind {
-    /// `epoch`.
+    /// `epoch` or `series`.
     pub fn as_str(self) -> &'static str {
         match self {
             Self::Epoch => "epoch",
+            Self::Series => "series",
         }
     }
 
@@ -265,6 +269,7 @@ impl AnalysisKind {
     pub fn parse(s: &str) -> Option<Self> {
         match s {
             "epoch" => Some(Self::Epoch),
+            "series" => Some(Self::Series),
             _ => None,
         }
     }
@@ -312,13 +317,22 @@ pub struct Analysis {
     pub status: AnalysisStatus,
     /// Estimator name (`delaunay`, `elements`, `groups`, `neighbourhood`, `network`).
     pub method: String,
-    /// The epoch analysed, RFC 3339 UTC.
+    /// The epoch analysed (kind `epoch`), RFC 3339 UTC; `null` for a series.
     #[serde(with = "time::serde::rfc3339::option")]
     pub epoch: Option<OffsetDateTime>,
-    /// The baseline epoch whose readings were subtracted, RFC 3339 UTC; `null` when
-    /// the displacements are from the reference coordinates.
+    /// The baseline epoch, RFC 3339 UTC: for an epoch analysis the epoch whose
+    /// readings were subtracted (`null` when the displacements are from the reference
+    /// coordinates); for a series the epoch the cumulative strains are measured from.
     #[serde(with = "time::serde::rfc3339::option")]
     pub baseline_epoch: Option<OffsetDateTime>,
+    /// First epoch of a series (kind `series`), RFC 3339 UTC; `null` for an epoch
+    /// analysis.
+    #[serde(with = "time::serde::rfc3339::option")]
+    pub series_first: Option<OffsetDateTime>,
+    /// Last epoch of a series (kind `series`), RFC 3339 UTC; `null` for an epoch
+    /// analysis.
+    #[serde(with = "time::serde::rfc3339::option")]
+    pub series_last: Option<OffsetDateTime>,
     /// The request's method, options and units, as given.
     #[schema(value_type = Object)]
     pub parameters: serde_json::Value,

@@ -259,6 +259,8 @@ pub fn run_epoch(
         method: req.method.name().to_owned(),
         epoch: Some(req.epoch),
         baseline_epoch: req.baseline_epoch,
+        series_first: None,
+        series_last: None,
         parameters,
         inputs,
         software_version: env!("CARGO_PKG_VERSION").to_owned(),

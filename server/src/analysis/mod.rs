@@ -1,7 +1,8 @@
 //! Analyses for the service: the API's description of an estimator run
 //! ([`params`]), the run itself through the offline pipeline ([`field`]), the
 //! closed-form report of one displacement gradient ([`gradient`]), displacements of a
-//! stored epoch turned into points ([`epoch`]) and the exports of a stored result
+//! stored epoch turned into points ([`epoch`]), stored epochs turned into a
+//! strain series ([`series`]) and the exports of a stored result
 //! ([`export`]).
 //!
 //! Nothing here re-derives a formula: every strain state comes from
@@ -16,6 +17,7 @@ pub mod export;
 pub mod field;
 pub mod gradient;
 pub mod params;
+pub mod series;
 
 use thiserror::Error;
 

@@ -46,7 +46,8 @@ use super::{Dim, StrainRow};
 use crate::cli::CliError;
 use crate::cli::analyze::{AnalyzeArgs, Method, Weighting};
 use crate::input::{
-    EpochSeries, ReadOptions, format_rfc3339, read_elements, read_epochs, read_groups,
+    ElementRow, EpochSeries, GroupRows, ReadOptions, format_rfc3339, read_elements, read_epochs,
+    read_groups,
 };
 use crate::output::{self, Cell, Column, Footer, Header, RowSink, Section};
 use crate::units::StrainUnit;
@@ -124,9 +125,16 @@ fn thermal(a: &AnalyzeArgs) -> Result<Option<(ThermalCompensation, Option<String
     }
 }
 
-/// Read and check everything for a series run (`method` resolved from the flags).
-/// Nothing is written.
-pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliError> {
+/// The regions of a series as read from a file or given in a request.
+#[derive(Debug, Clone, PartialEq)]
+pub enum RegionRows {
+    /// Elements (`--method elements`).
+    Elements(Vec<ElementRow>),
+    /// Groups (`--method groups`).
+    Groups(Vec<GroupRows>),
+}
+
+fn check_method_flags(a: &AnalyzeArgs, method: Method) -> Result<(), CliError> {
     if !matches!(method, Method::Elements | Method::Groups) {
         return Err(usage(format!(
             "--series follows fixed regions: use --method elements (with --elements FILE) or \
@@ -146,7 +154,14 @@ pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliErro
             )));
         }
     }
-    let thermal = thermal(a)?;
+    Ok(())
+}
+
+/// Read and check everything for a series run (`method` resolved from the flags).
+/// Nothing is written.
+pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliError> {
+    check_method_flags(a, method)?;
+    thermal(a)?;
     let epochs = read_epochs(
         &a.points_file,
         &ReadOptions {
@@ -154,6 +169,44 @@ pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliErro
             progress: !a.quiet,
         },
     )?;
+    if a.baseline.is_none() {
+        return Err(usage(format!(
+            "--series needs --baseline LABEL, one of the epochs: {}",
+            epochs.labels().join(", ")
+        )));
+    }
+    let rows = match method {
+        Method::Elements => {
+            let path = a
+                .elements
+                .as_deref()
+                .ok_or_else(|| usage("--method elements needs --elements FILE"))?;
+            RegionRows::Elements(read_elements(path)?)
+        }
+        _ => {
+            let path = a
+                .groups
+                .as_deref()
+                .ok_or_else(|| usage("--method groups needs --groups FILE"))?;
+            RegionRows::Groups(read_groups(path)?)
+        }
+    };
+    prepare_from(a, method, epochs, rows)
+}
+
+/// The part of [`prepare`] after the input has been read: check the flags, build the
+/// regions and the header. `epochs` are positions in metres; `rows` stand for the file
+/// named by `--elements` or `--groups` (the flag must be set, with any label, and
+/// match `method`). The header names `a.points_file` as the input. Nothing is read or
+/// written.
+pub fn prepare_from(
+    a: &AnalyzeArgs,
+    method: Method,
+    epochs: EpochSeries,
+    rows: RegionRows,
+) -> Result<SeriesRequest, CliError> {
+    check_method_flags(a, method)?;
+    let thermal = thermal(a)?;
     let labels = epochs.labels().join(", ");
     let Some(baseline) = a.baseline.clone() else {
         return Err(usage(format!(
@@ -161,13 +214,12 @@ pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliErro
         )));
     };
     let unit = a.length_unit;
-    let (regions, members, file_param) = match method {
-        Method::Elements => {
+    let (regions, members, file_param) = match (method, rows) {
+        (Method::Elements, RegionRows::Elements(rows)) => {
             let path = a
                 .elements
                 .as_deref()
                 .ok_or_else(|| usage("--method elements needs --elements FILE"))?;
-            let rows = read_elements(path)?;
             let members = rows
                 .iter()
                 .map(|e| (e.id.clone(), e.vertices.clone()))
@@ -190,12 +242,11 @@ pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliErro
                 ("elements_file", path.display().to_string()),
             )
         }
-        _ => {
+        (Method::Groups, RegionRows::Groups(rows)) => {
             let path = a
                 .groups
                 .as_deref()
                 .ok_or_else(|| usage("--method groups needs --groups FILE"))?;
-            let rows = read_groups(path)?;
             let members = rows
                 .iter()
                 .map(|g| (g.name.clone(), g.point_ids.clone()))
@@ -232,6 +283,12 @@ pub fn prepare(a: &AnalyzeArgs, method: Method) -> Result<SeriesRequest, CliErro
                 members,
                 ("groups_file", path.display().to_string()),
             )
+        }
+        (m, _) => {
+            return Err(usage(format!(
+                "--method {} does not match the regions given",
+                m.name()
+            )));
         }
     };
 

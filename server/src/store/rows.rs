@@ -261,6 +261,8 @@ pub struct AnalysisRow<T> {
     pub method: String,
     pub epoch: Option<T>,
     pub baseline_epoch: Option<T>,
+    pub series_first: Option<T>,
+    pub series_last: Option<T>,
     pub parameters: Json<serde_json::Value>,
     pub inputs: Json<serde_json::Value>,
     pub software_version: String,
@@ -275,7 +277,8 @@ pub struct AnalysisRow<T> {
 macro_rules! analysis_columns {
     () => {
         "a.id, s.id AS structure_id, a.kind, a.status, a.method, a.epoch, a.baseline_epoch, \
-         a.parameters, a.inputs, a.software_version, a.result, a.error, a.created_at, a.duration_ms"
+         a.series_first, a.series_last, a.parameters, a.inputs, a.software_version, a.result, \
+         a.error, a.created_at, a.duration_ms"
     };
 }
 pub(crate) use analysis_columns;
@@ -284,8 +287,8 @@ pub(crate) use analysis_columns;
 macro_rules! analysis_list_columns {
     () => {
         "a.id, s.id AS structure_id, a.kind, a.status, a.method, a.epoch, a.baseline_epoch, \
-         a.parameters, a.inputs, a.software_version, CAST(NULL AS JSONB) AS result, a.error, \
-         a.created_at, a.duration_ms"
+         a.series_first, a.series_last, a.parameters, a.inputs, a.software_version, \
+         CAST(NULL AS JSONB) AS result, a.error, a.created_at, a.duration_ms"
     };
 }
 pub(crate) use analysis_list_columns;
@@ -303,6 +306,8 @@ impl<T: DbTime> AnalysisRow<T> {
             method: self.method,
             epoch: opt_time(self.epoch)?,
             baseline_epoch: opt_time(self.baseline_epoch)?,
+            series_first: opt_time(self.series_first)?,
+            series_last: opt_time(self.series_last)?,
             parameters: self.parameters.0,
             inputs: self.inputs.0,
             software_version: self.software_version,

@@ -11,7 +11,8 @@ use uuid::Uuid;
 
 crate::contract!(
     analyses_round_trip_and_list_newest_first_with_filters,
-    analyses_need_their_structure_and_go_with_it
+    analyses_need_their_structure_and_go_with_it,
+    series_analyses_keep_their_epoch_range
 );
 
 async fn structure(store: &DynStore, id: &str) {
@@ -42,6 +43,8 @@ fn analysis(structure: &str, status: AnalysisStatus, minutes: i64) -> Analysis {
         method: "delaunay".into(),
         epoch: Some(t),
         baseline_epoch: None,
+        series_first: None,
+        series_last: None,
         parameters: json!({"method": {"kind": "delaunay"}}),
         inputs: json!({"points_used": 4}),
         software_version: "0.1.0".into(),
@@ -138,4 +141,33 @@ async fn analyses_need_their_structure_and_go_with_it(store: DynStore) {
     assert!(store.delete_structure("W1").await.expect("delete"));
     structure(&store, "W1").await;
     assert_eq!(store.get_analysis("W1", a.id).await.expect("get"), None);
+}
+
+async fn series_analyses_keep_their_epoch_range(store: DynStore) {
+    structure(&store, "W1").await;
+    let mut s = analysis("W1", AnalysisStatus::Succeeded, 5);
+    let first = s.created_at - Duration::days(30);
+    s.kind = AnalysisKind::Series;
+    s.method = "groups".into();
+    s.epoch = None;
+    s.baseline_epoch = Some(first);
+    s.series_first = Some(first);
+    s.series_last = Some(first + Duration::days(20));
+    store.insert_analysis(&s).await.expect("insert");
+    let back = store.get_analysis("W1", s.id).await.expect("get");
+    assert_eq!(back, Some(s.clone()));
+    let listed = store
+        .list_analyses(
+            "W1",
+            &AnalysisQuery {
+                limit: 10,
+                ..AnalysisQuery::default()
+            },
+        )
+        .await
+        .expect("list");
+    assert_eq!(listed.len(), 1);
+    assert_eq!(listed[0].kind, AnalysisKind::Series);
+    assert_eq!(listed[0].series_first, s.series_first);
+    assert_eq!(listed[0].series_last, s.series_last);
 }

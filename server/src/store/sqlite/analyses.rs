@@ -12,9 +12,10 @@ pub(super) async fn insert_analysis(pool: &SqlitePool, a: &Analysis) -> Result<(
     check_analysis(a)?;
     let done = sqlx::query(
         "INSERT INTO analyses (id, structure_key, kind, status, method, epoch, baseline_epoch, \
-         parameters, inputs, software_version, result, error, created_at, duration_ms) \
-         SELECT $1, s.key, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13 \
-         FROM structures s WHERE s.id = $14",
+         series_first, series_last, parameters, inputs, software_version, result, error, \
+         created_at, duration_ms) \
+         SELECT $1, s.key, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15 \
+         FROM structures s WHERE s.id = $16",
     )
     .bind(a.id)
     .bind(a.kind.as_str())
@@ -22,6 +23,8 @@ pub(super) async fn insert_analysis(pool: &SqlitePool, a: &Analysis) -> Result<(
     .bind(&a.method)
     .bind(a.epoch.map(to_unix_micros))
     .bind(a.baseline_epoch.map(to_unix_micros))
+    .bind(a.series_first.map(to_unix_micros))
+    .bind(a.series_last.map(to_unix_micros))
     .bind(Json(&a.parameters))
     .bind(Json(&a.inputs))
     .bind(&a.software_version)
