@@ -15,6 +15,13 @@ standard library only; the output is the same on every run.
   hsls03/batch.json           POST /v1/structures/HSLS-03/batches (application/json: the
                               reference epoch with zero displacement and the current one,
                               displacements along East/North/Up in m)
+  alrw01/analysis-S6-delaunay.json    POST /v1/structures/ALRW-01/analyses: survey S6
+                              against S0, Delaunay triangles, precision-weighted tests
+  alrw01/analysis-S6-groups.json      the same epoch, one fit per bay half (8 groups)
+  alrw01/analysis-series-groups.json  all seven surveys, cumulative strain and rates per
+                              bay half
+  hsls03/analysis.json        POST /v1/structures/HSLS-03/analyses: the current epoch
+                              against the reference, Delaunay triangles (GeoJSON export)
   compute/gradient.json       POST /v1/compute/gradient (one measured gradient of the wall)
   compute/strain-field.json   POST /v1/compute/strain-field (the wall's current survey,
                               Delaunay triangles, from offline/points.csv)
@@ -145,6 +152,38 @@ def slope():
     write_json(os.path.join(HERE, "hsls03", "batch.json"), {"length_unit": "m", "readings": readings})
 
 
+def analyses():
+    groups = {}
+    for r in csv.DictReader(open(os.path.join(OFFLINE, "groups.csv"), encoding="utf-8")):
+        groups.setdefault(r["group"], []).append(r["point_id"])
+    group_list = [{"name": g, "point_ids": ids} for g, ids in groups.items()]
+    times = {}
+    for r in csv.DictReader(open(os.path.join(OFFLINE, "epochs.csv"), encoding="utf-8")):
+        times[r["epoch"]] = r["time"]
+    write_json(
+        os.path.join(HERE, "alrw01", "analysis-S6-delaunay.json"),
+        {"kind": "epoch", "epoch": times["S6"], "baseline_epoch": times["S0"],
+         "method": {"kind": "delaunay"}, "strain_unit": "microstrain"},
+    )
+    write_json(
+        os.path.join(HERE, "alrw01", "analysis-S6-groups.json"),
+        {"kind": "epoch", "epoch": times["S6"], "baseline_epoch": times["S0"],
+         "method": {"kind": "groups", "groups": group_list},
+         "options": {"use_precision": True}, "strain_unit": "microstrain"},
+    )
+    write_json(
+        os.path.join(HERE, "alrw01", "analysis-series-groups.json"),
+        {"kind": "series", "baseline_epoch": times["S0"],
+         "method": {"kind": "groups", "groups": group_list},
+         "options": {"use_precision": True}, "strain_unit": "microstrain"},
+    )
+    write_json(
+        os.path.join(HERE, "hsls03", "analysis.json"),
+        {"kind": "epoch", "epoch": "2026-11-02T06:00:00Z", "baseline_epoch": "2026-05-04T06:00:00Z",
+         "method": {"kind": "delaunay"}, "options": {"min_angle_deg": 5}, "strain_unit": "microstrain"},
+    )
+
+
 def compute():
     write_json(
         os.path.join(HERE, "compute", "gradient.json"),
@@ -181,4 +220,5 @@ def compute():
 if __name__ == "__main__":
     wall()
     slope()
+    analyses()
     compute()

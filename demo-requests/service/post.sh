@@ -72,6 +72,43 @@ call hsls03-batch.json 201 POST /v1/structures/HSLS-03/batches \
     -H 'Content-Type: application/json' -H "Idempotency-Key: hsls03-2026-11" \
     --data-binary "@$here/hsls03/batch.json"
 
+echo "Analyses, stored with their inputs, parameters and results:"
+# analyse NAME STRUCTURE BODY: POST the analysis, then export its result in every format
+# that applies (GeoJSON only where the frame is East-North-Up and the result is spatial).
+analyse() {
+    local name="$1" sid="$2" body="$3" formats="$4"
+    call "$name.json" 201 POST "/v1/structures/$sid/analyses" \
+        -H 'Content-Type: application/json' --data-binary "@$body"
+    local id status
+    id=$(field "$out/$name.json" 'd["id"]')
+    status=$(field "$out/$name.json" 'd["status"]')
+    if [ "$status" != succeeded ]; then
+        echo "  $name: the analysis $status: $(field "$out/$name.json" 'd.get("error")')" >&2
+        failures=$((failures + 1))
+        return
+    fi
+    for fmt in $formats; do
+        call "$name-result.$fmt" 200 GET "/v1/structures/$sid/analyses/$id/result?format=$fmt"
+    done
+}
+analyse alrw01-analysis-S6-delaunay ALRW-01 "$here/alrw01/analysis-S6-delaunay.json" "json csv"
+analyse alrw01-analysis-S6-groups ALRW-01 "$here/alrw01/analysis-S6-groups.json" "json csv"
+analyse alrw01-analysis-series ALRW-01 "$here/alrw01/analysis-series-groups.json" "json csv"
+analyse hsls03-analysis HSLS-03 "$here/hsls03/analysis.json" "json csv geojson"
+call alrw01-analyses.json 200 GET '/v1/structures/ALRW-01/analyses?status=succeeded&limit=2'
+python3 - "$out/alrw01-analyses.json" <<'PY' || failures=$((failures + 1))
+import json, sys
+d = json.load(open(sys.argv[1]))
+assert len(d["items"]) == 2 and d.get("next_cursor"), "two of three analyses and a cursor"
+PY
+python3 - "$out/hsls03-analysis-result.geojson" <<'PY' || failures=$((failures + 1))
+import json, sys
+d = json.load(open(sys.argv[1]))
+assert d["type"] == "FeatureCollection" and d["features"], "features"
+lon, lat = d["features"][0]["geometry"]["coordinates"][0][0]
+assert -2.5 < lon < -2.3 and 54.2 < lat < 54.4, (lon, lat)
+PY
+
 echo "Stateless computations (nothing stored):"
 call compute-gradient.json 200 POST /v1/compute/gradient \
     -H 'Content-Type: application/json' --data-binary "@$here/compute/gradient.json"
