@@ -337,7 +337,11 @@ async fn scenario(store: DynStore) {
     assert_eq!(s, StatusCode::CONFLICT);
     assert!(String::from_utf8_lossy(&b).contains("local frame"));
     let (s, _, _) = get(&app, &token, &format!("{base_path}?format=xml")).await;
-    assert_eq!(s, StatusCode::BAD_REQUEST);
+    assert_eq!(
+        s,
+        StatusCode::UNPROCESSABLE_ENTITY,
+        "a bad format is a bad field"
+    );
     // Another structure's analysis, and a key limited to another structure: 404.
     let (s, _, _) = get(
         &app,

@@ -667,6 +667,11 @@ async fn idempotent_replay_and_mismatch(pg: bool) {
     );
     svc.refused(r, StatusCode::UNPROCESSABLE_ENTITY, None, (1, 1))
         .await;
+    // The same body with another unit is another request (values 1000 times apart).
+    let in_m = format!("{BATCHES}?length_unit=m");
+    let r = svc.send("POST", &in_m, "text/csv", body.into(), &key).await;
+    svc.refused(r, StatusCode::UNPROCESSABLE_ENTITY, None, (1, 1))
+        .await;
     svc.finish().await;
 }
 

@@ -36,6 +36,7 @@ api_case!(
     unknown_routes_and_methods_are_problems,
     slow_requests_time_out_with_408,
     requests_over_the_concurrency_limit_get_503,
+    bad_query_and_path_parameters_are_422_with_their_pointer,
 );
 
 const PATH: &str = "/v1/structures/WALL-1";
@@ -665,7 +666,8 @@ async fn unknown_routes_and_methods_are_problems(b: Backend) {
     let r = app
         .call(Method::GET, "/v1/structures?limit=abc", Some(&t), None)
         .await;
-    r.problem(400);
+    r.problem(422);
+    assert_eq!(r.pointers(), ["/limit"]);
     let r = app
         .call(Method::GET, "/v1/structures?cursor=zz", Some(&t), None)
         .await;
@@ -746,4 +748,26 @@ async fn requests_over_the_concurrency_limit_get_503(b: Backend) {
     assert_eq!(first.await.expect("request 1"), 200);
     let r = app.call(Method::GET, "/healthz", None, None).await;
     assert_eq!(r.status, 200);
+}
+
+async fn bad_query_and_path_parameters_are_422_with_their_pointer(b: Backend) {
+    let (app, _t) = with_wall(b, Limits::default()).await;
+    let admin = app.key(Scope::Admin, None).await;
+    for (path, pointer) in [
+        ("/v1/structures?limit=abc", "/limit"),
+        ("/v1/structures?limit=-1", "/limit"),
+        ("/v1/structures?limit=0", "/limit"),
+        ("/v1/structures/WALL-1/batches?limit=many", "/limit"),
+        ("/v1/structures/WALL-1/analyses?from=yesterday", "/from"),
+        ("/v1/structures/WALL-1/analyses?status=maybe", "/status"),
+    ] {
+        let r = app.call(Method::GET, path, Some(&admin), None).await;
+        r.problem(422);
+        assert_eq!(r.pointers(), [pointer], "{path}: {}", r.json);
+    }
+    let r = app
+        .call(Method::DELETE, "/v1/keys/not-a-uuid", Some(&admin), None)
+        .await;
+    r.problem(422);
+    assert_eq!(r.pointers(), ["/key_id"]);
 }

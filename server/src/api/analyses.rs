@@ -1,7 +1,7 @@
 //! `/v1/structures/{id}/analyses`: the stored analyses of a structure, their history
 //! and the exports of a result (JSON, CSV, GeoJSON).
 
-use axum::extract::{Path, Query, State};
+use axum::extract::{Path, State};
 use axum::http::{HeaderValue, header};
 use axum::response::{IntoResponse, Response};
 use kinema_core::geodesy::{EnuFrame, Geodetic};
@@ -14,7 +14,7 @@ use uuid::Uuid;
 
 use super::AppState;
 use super::auth::Caller;
-use super::extract::ApiJson;
+use super::extract::{ApiJson, ApiQuery};
 use super::page::{Page, PageQuery};
 use super::problem::{ApiError, Problem};
 use crate::analysis::epoch::{Displacement, EpochRequest, run_epoch};
@@ -271,7 +271,7 @@ pub async fn post_analysis(
                 return Err(ApiError::field(
                     "/from",
                     format!(
-                        "a series needs 2 to {MAX_SERIES_EPOCHS} epochs with readings; the                          range (with the baseline) has {}",
+                        "a series needs 2 to {MAX_SERIES_EPOCHS} epochs with readings; the range (with the baseline) has {}",
                         times.len()
                     ),
                 ));
@@ -361,7 +361,7 @@ pub async fn list_analyses(
     State(state): State<AppState>,
     caller: Caller,
     Path(id): Path<String>,
-    Query(f): Query<AnalysisFilter>,
+    ApiQuery(f): ApiQuery<AnalysisFilter>,
 ) -> Result<axum::Json<AnalysisPage>, ApiError> {
     caller.structure(&state, Scope::Read, &id).await?;
     let page = PageQuery {
@@ -502,7 +502,7 @@ pub async fn get_result(
     State(state): State<AppState>,
     caller: Caller,
     Path((id, analysis)): Path<(String, String)>,
-    Query(q): Query<ExportQuery>,
+    ApiQuery(q): ApiQuery<ExportQuery>,
 ) -> Result<Response, ApiError> {
     let (s, a) = find(&state, &caller, &id, &analysis).await?;
     let Some(doc) = a.result else {

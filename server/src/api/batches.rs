@@ -5,7 +5,7 @@
 use std::io;
 
 use axum::body::Body;
-use axum::extract::{Path, Query, State};
+use axum::extract::{Path, State};
 use axum::http::{HeaderMap, HeaderName, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use futures_util::StreamExt;
@@ -21,7 +21,7 @@ use uuid::Uuid;
 
 use super::AppState;
 use super::auth::Caller;
-use super::extract::is_json;
+use super::extract::{ApiQuery, is_json};
 use super::page::{Page, PageQuery};
 use super::problem::{ApiError, FieldError, Problem};
 use crate::ingest::body::BodyReader;
@@ -83,6 +83,18 @@ pub struct BatchInput {
 pub struct BatchQuery {
     /// Unit of the values, `m` or `mm` (default: the structure's unit).
     pub length_unit: Option<String>,
+}
+
+/// What an `Idempotency-Key` is bound to: SHA-256 (hex) over the media type, the
+/// `?length_unit=` override and the SHA-256 of the body, so that the same body sent with
+/// another unit or media type is a different request (kept in the `body_sha256` column).
+fn request_fingerprint(media: Media, unit: Option<LengthUnit>, body_sha256: &str) -> String {
+    let text = format!(
+        "kinema-batch-v1\n{}\n{}\n{body_sha256}",
+        media.label(),
+        unit.map_or("", LengthUnit::label)
+    );
+    crate::keys::hex(&Sha256::digest(text.as_bytes()))
 }
 
 /// The media type of a batch body.
@@ -244,7 +256,7 @@ pub async fn post_batch(
     State(state): State<AppState>,
     caller: Caller,
     Path(id): Path<String>,
-    Query(q): Query<BatchQuery>,
+    ApiQuery(q): ApiQuery<BatchQuery>,
     headers: HeaderMap,
     body: Body,
 ) -> Result<Response, ApiError> {
@@ -257,11 +269,12 @@ pub async fn post_batch(
         && let Some(prev) = state.store.batch_by_idempotency_key(&id, k).await?
     {
         let sha = hash_body(body, limit).await?;
-        if sha == prev.body_sha256 {
+        if request_fingerprint(media, from_query, &sha) == prev.body_sha256 {
             return Ok(created(&id, prev.batch.id, &prev.response, true));
         }
         return Err(ApiError::IdempotencyMismatch(format!(
-            "the Idempotency-Key {k:?} was used for another body (batch {}); use a new key for new readings",
+            "the Idempotency-Key {k:?} was used for another request (another body, media type or \
+             length_unit; batch {}); use a new key for new readings",
             prev.batch.id
         )));
     }
@@ -304,7 +317,7 @@ pub async fn post_batch(
             received_at,
             media_type: media.label().to_owned(),
             idempotency_key: key,
-            body_sha256: outcome.body_sha256,
+            body_sha256: request_fingerprint(media, from_query, &outcome.body_sha256),
         })
         .await?;
     state.metrics.batch_ingested(batch.readings);
@@ -362,7 +375,7 @@ pub async fn list_batches(
     State(state): State<AppState>,
     caller: Caller,
     Path(id): Path<String>,
-    Query(q): Query<PageQuery>,
+    ApiQuery(q): ApiQuery<PageQuery>,
 ) -> Result<axum::Json<BatchPage>, ApiError> {
     caller.structure(&state, Scope::Read, &id).await?;
     let limit = q.limit()?;
@@ -426,7 +439,7 @@ pub async fn list_epochs(
     State(state): State<AppState>,
     caller: Caller,
     Path(id): Path<String>,
-    Query(q): Query<EpochsQuery>,
+    ApiQuery(q): ApiQuery<EpochsQuery>,
 ) -> Result<axum::Json<EpochsOut>, ApiError> {
     caller.structure(&state, Scope::Read, &id).await?;
     let from = query_epoch(q.from.as_deref(), "/from")?;
@@ -492,7 +505,7 @@ pub async fn readings_at(
     State(state): State<AppState>,
     caller: Caller,
     Path(id): Path<String>,
-    Query(q): Query<ReadingsQuery>,
+    ApiQuery(q): ApiQuery<ReadingsQuery>,
 ) -> Result<axum::Json<ReadingsOut>, ApiError> {
     let s = caller.structure(&state, Scope::Read, &id).await?;
     let epoch = query_epoch(q.epoch.as_deref(), "/epoch")?.ok_or_else(|| {

@@ -2,8 +2,9 @@
 //! to the first bad field, and checks on the content type and size.
 
 use axum::body::Bytes;
-use axum::extract::{FromRequest, Request};
+use axum::extract::{FromRequest, FromRequestParts, Request};
 use axum::http::header;
+use axum::http::request::Parts;
 use serde::de::DeserializeOwned;
 use serde_json::error::Category;
 
@@ -17,6 +18,36 @@ use super::problem::{ApiError, FieldError};
 /// - JSON whose fields do not fit `T` (missing, unknown, wrong type): 422 with the
 ///   pointer of the field.
 pub struct ApiJson<T>(pub T);
+
+/// Query parameters of type `T`; a parameter that does not fit (a number that is not
+/// one, an unknown value) is a 422 whose pointer names it (`/limit`, `/format`).
+pub struct ApiQuery<T>(pub T);
+
+impl<T, S> FromRequestParts<S> for ApiQuery<T>
+where
+    T: DeserializeOwned,
+    S: Send + Sync,
+{
+    type Rejection = ApiError;
+
+    async fn from_request_parts(parts: &mut Parts, _state: &S) -> Result<Self, Self::Rejection> {
+        let query = parts.uri.query().unwrap_or("");
+        let de = serde_urlencoded::Deserializer::new(form_urlencoded::parse(query.as_bytes()));
+        serde_path_to_error::deserialize(de)
+            .map(ApiQuery)
+            .map_err(|e| {
+                let pointer = pointer_of(e.path());
+                ApiError::field(
+                    if pointer.is_empty() {
+                        "/".to_owned()
+                    } else {
+                        pointer
+                    },
+                    format!("query parameter: {}", e.into_inner()),
+                )
+            })
+    }
+}
 
 /// Whether `content_type` is JSON (`application/json`, `application/*+json`).
 pub fn is_json(content_type: &str) -> bool {

@@ -142,9 +142,11 @@ pub async fn list_keys(
 pub async fn revoke_key(
     State(state): State<AppState>,
     caller: Caller,
-    Path(key_id): Path<Uuid>,
+    Path(key_id): Path<String>,
 ) -> Result<StatusCode, ApiError> {
     require_key_admin(&caller)?;
+    let key_id = Uuid::parse_str(&key_id)
+        .map_err(|_| ApiError::field("/key_id", format!("{key_id:?} is not a UUID")))?;
     if state.store.revoke_key(key_id).await? {
         Ok(StatusCode::NO_CONTENT)
     } else {

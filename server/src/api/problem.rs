@@ -203,6 +203,11 @@ impl ApiError {
                 "database-unavailable",
                 "Database unavailable",
             ),
+            Self::Store(StoreError::Database(sqlx::Error::Database(e))) if is_busy(e.as_ref()) => (
+                StatusCode::SERVICE_UNAVAILABLE,
+                "database-busy",
+                "Database busy",
+            ),
             Self::Store(_) | Self::Internal(_) => (
                 StatusCode::INTERNAL_SERVER_ERROR,
                 "internal",
@@ -219,7 +224,9 @@ impl ApiError {
                 StoreError::Conflict(m) | StoreError::NotFound(m) | StoreError::Invalid(m),
             ) => m.clone(),
             Self::Store(_) | Self::Internal(_) if status.is_server_error() => {
-                if status == StatusCode::SERVICE_UNAVAILABLE {
+                if slug == "database-busy" {
+                    "the database is busy with another write; retry later".to_owned()
+                } else if status == StatusCode::SERVICE_UNAVAILABLE {
                     "the database is not reachable; retry later".to_owned()
                 } else {
                     "an internal error occurred; it has been logged".to_owned()
@@ -233,6 +240,12 @@ impl ApiError {
         };
         problem(status, slug, title, detail, errors)
     }
+}
+
+/// SQLite's "busy" and "locked" result codes (5, 6 and their extended forms 261, 262,
+/// 517): another writer held the database past the busy timeout.
+fn is_busy(e: &dyn sqlx::error::DatabaseError) -> bool {
+    matches!(e.code().as_deref(), Some("5" | "6" | "261" | "262" | "517"))
 }
 
 /// A problem document.
@@ -273,12 +286,16 @@ impl IntoResponse for ApiError {
         if p.status >= 500 {
             tracing::error!(error = %self, "request failed");
         }
-        let extra = matches!(self, Self::Unauthorized(_)).then(|| {
-            (
+        let extra = if matches!(self, Self::Unauthorized(_)) {
+            Some((
                 header::WWW_AUTHENTICATE,
                 HeaderValue::from_static("Bearer realm=\"kinema\""),
-            )
-        });
+            ))
+        } else if p.status == 503 {
+            Some((header::RETRY_AFTER, HeaderValue::from_static("1")))
+        } else {
+            None
+        };
         p.into_response_with(extra)
     }
 }

@@ -1,7 +1,7 @@
 //! `/v1/structures`: structures keyed by the client's asset ID, and their monitoring
 //! points.
 
-use axum::extract::{Path, Query, State};
+use axum::extract::{Path, State};
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use kinema_core::geodesy::{EnuFrame, Geodetic};
@@ -12,7 +12,7 @@ use utoipa_axum::routes;
 
 use super::AppState;
 use super::auth::{Caller, not_found};
-use super::extract::ApiJson;
+use super::extract::{ApiJson, ApiQuery};
 use super::page::{Page, PageQuery};
 use super::problem::{ApiError, FieldError, Problem};
 use crate::model::{
@@ -150,7 +150,7 @@ fn path_id(id: &str) -> Result<(), ApiError> {
 /// Create or replace a structure.
 ///
 /// The ID is the client's own asset ID. Replacing keeps the creation time and the
-/// points; the dimension cannot change once the structure has points (409).
+/// points; the dimension and the frame cannot change once the structure has points (409).
 #[utoipa::path(put, path = "/v1/structures/{id}", tag = "structures",
     params(("id" = String, Path, description = "The client's asset ID (1–64 characters of A-Za-z0-9._-)")),
     request_body = StructureInput,
@@ -162,7 +162,7 @@ fn path_id(id: &str) -> Result<(), ApiError> {
         (status = 401, description = "No valid API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The key lacks the write scope", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "Outside the key's structure list", body = Problem, content_type = "application/problem+json"),
-        (status = 409, description = "Dimension change of a structure with points", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "Dimension or frame change of a structure with points", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Invalid fields", body = Problem, content_type = "application/problem+json"),
     ))]
 pub async fn put_structure(
@@ -263,7 +263,7 @@ pub struct StructurePage {
 pub async fn list_structures(
     State(state): State<AppState>,
     caller: Caller,
-    Query(q): Query<PageQuery>,
+    ApiQuery(q): ApiQuery<PageQuery>,
 ) -> Result<axum::Json<StructurePage>, ApiError> {
     caller.require(Scope::Read)?;
     let limit = q.limit()?;

@@ -51,14 +51,32 @@ macro_rules! common_sql {
             s: &Structure,
         ) -> Result<(Written, Structure), StoreError> {
             let mut tx = store.write_tx().await?;
-            let existing = lookup(&mut *tx, &s.id).await?;
-            let written = match existing {
-                Some((key, dim, n_points)) => {
-                    if i16::from(s.dimension) != dim && n_points > 0 {
-                        return Err(StoreError::Conflict(format!(
-                            "structure {} has {n_points} points in {dim}D; its dimension cannot change to {}D",
-                            s.id, s.dimension
-                        )));
+            // A concurrent request may create the same structure between the lookup and
+            // the insert (PostgreSQL): the insert then does nothing and the loop updates the
+            // row the other request created.
+            let mut written = None;
+            for _ in 0..2 {
+                if let Some((key, dim, n_points)) = lookup(&mut *tx, &s.id).await? {
+                    if n_points > 0 {
+                        if i16::from(s.dimension) != dim {
+                            return Err(StoreError::Conflict(format!(
+                                "structure {} has {n_points} points in {dim}D; its dimension cannot change to {}D",
+                                s.id, s.dimension
+                            )));
+                        }
+                        let (frame,): (Json<$crate::model::Frame>,) =
+                            sqlx::query_as("SELECT frame FROM structures WHERE key = $1")
+                                .bind(key)
+                                .fetch_one(&mut *tx)
+                                .await?;
+                        if frame.0 != s.frame {
+                            return Err(StoreError::Conflict(format!(
+                                "structure {} has {n_points} points in its frame; the frame cannot \
+                                 change under them (their coordinates and readings would be \
+                                 reinterpreted)",
+                                s.id
+                            )));
+                        }
                     }
                     sqlx::query(
                         "UPDATE structures SET name = $1, dimension = $2, frame = $3, length_unit = $4, \
@@ -74,27 +92,36 @@ macro_rules! common_sql {
                     .bind(key)
                     .execute(&mut *tx)
                     .await?;
-                    Written::Updated
+                    written = Some(Written::Updated);
+                    break;
                 }
-                None => {
-                    sqlx::query(
-                        "INSERT INTO structures (id, name, dimension, frame, length_unit, material, \
-                         metadata, created_at, updated_at) VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9)",
-                    )
-                    .bind(&s.id)
-                    .bind(&s.name)
-                    .bind(i16::from(s.dimension))
-                    .bind(Json(&s.frame))
-                    .bind(s.length_unit.label())
-                    .bind(s.material.as_ref().map(Json))
-                    .bind(Json(&s.metadata))
-                    .bind(<$Time as DbTime>::from_time(s.created_at))
-                    .bind(<$Time as DbTime>::from_time(s.updated_at))
-                    .execute(&mut *tx)
-                    .await?;
-                    Written::Created
+                let done = sqlx::query(
+                    "INSERT INTO structures (id, name, dimension, frame, length_unit, material, \
+                     metadata, created_at, updated_at) VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9) \
+                     ON CONFLICT (id) DO NOTHING",
+                )
+                .bind(&s.id)
+                .bind(&s.name)
+                .bind(i16::from(s.dimension))
+                .bind(Json(&s.frame))
+                .bind(s.length_unit.label())
+                .bind(s.material.as_ref().map(Json))
+                .bind(Json(&s.metadata))
+                .bind(<$Time as DbTime>::from_time(s.created_at))
+                .bind(<$Time as DbTime>::from_time(s.updated_at))
+                .execute(&mut *tx)
+                .await?;
+                if done.rows_affected() == 1 {
+                    written = Some(Written::Created);
+                    break;
                 }
-            };
+            }
+            let written = written.ok_or_else(|| {
+                StoreError::Conflict(format!(
+                    "structure {} was created and deleted concurrently; retry",
+                    s.id
+                ))
+            })?;
             let stored = get_structure(&mut *tx, &s.id)
                 .await?
                 .ok_or_else(|| StoreError::corrupt("structure vanished inside its transaction"))?;

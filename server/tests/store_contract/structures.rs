@@ -11,6 +11,8 @@ crate::contract!(
     points_upsert_in_one_transaction,
     delete_removes_structure_and_points,
     points_of_unknown_structure_are_not_found,
+    frame_cannot_change_under_points,
+    concurrent_creates_of_one_structure_all_succeed,
 );
 
 /// A structure for the contract cases.
@@ -192,4 +194,49 @@ async fn points_of_unknown_structure_are_not_found(store: DynStore) {
     assert!(matches!(e, StoreError::NotFound(_)), "{e:?}");
     let e = store.list_points("nope").await.expect_err("refused");
     assert!(matches!(e, StoreError::NotFound(_)), "{e:?}");
+}
+
+async fn frame_cannot_change_under_points(store: DynStore) {
+    store.put_structure(&structure("S", 2)).await.expect("put");
+    let mut local = structure("S", 2);
+    local.frame = Frame::Local;
+    // No points yet: the frame may change.
+    store.put_structure(&local).await.expect("to local");
+    store
+        .put_points("S", &[point("P1", 0.0, 0.0)])
+        .await
+        .expect("points");
+    let e = store
+        .put_structure(&structure("S", 2))
+        .await
+        .expect_err("refused");
+    assert!(matches!(e, StoreError::Conflict(_)), "{e:?}");
+    assert_eq!(
+        store
+            .get_structure("S")
+            .await
+            .expect("get")
+            .map(|s| s.frame),
+        Some(Frame::Local)
+    );
+    // The name and metadata may still change.
+    let mut renamed = local.clone();
+    renamed.name = "Renamed".into();
+    store.put_structure(&renamed).await.expect("rename");
+}
+
+async fn concurrent_creates_of_one_structure_all_succeed(store: DynStore) {
+    let mut tasks = Vec::new();
+    for _ in 0..6 {
+        let store = store.clone();
+        tasks.push(tokio::spawn(async move {
+            store.put_structure(&structure("RACE", 2)).await
+        }));
+    }
+    let mut created = 0;
+    for t in tasks {
+        let (w, _) = t.await.expect("task").expect("every put succeeds");
+        created += usize::from(w == Written::Created);
+    }
+    assert_eq!(created, 1, "exactly one put created the structure");
 }
