@@ -16,7 +16,7 @@ use super::AnalysisError;
 use crate::cli::analyze::Request;
 use crate::input::Points;
 use crate::input::geodetic::{EnuInfo, OriginSource};
-use crate::output::{Cell, JsonSink};
+use crate::output::{Cell, Footer, Header, JsonSink, RowSink, Section};
 
 /// One point of a strain field, metres.
 #[derive(Debug, Clone, PartialEq)]
@@ -91,10 +91,59 @@ pub fn set_enu(req: &mut Request, frame: EnuFrame) {
 /// [`AnalysisError::NotComputable`] when the estimator cannot compute on the data (the
 /// core's reason), [`AnalysisError::Parameters`] for parameters that do not fit it.
 pub fn run(req: &Request) -> Result<Value, AnalysisError> {
-    let mut sink = JsonSink::new(Vec::new());
-    crate::pipeline::run(req, &mut sink, "result document")?;
-    serde_json::from_slice(&sink.into_inner())
+    let (bytes, _) = run_bytes(req)?;
+    serde_json::from_slice(&bytes)
         .map_err(|e| AnalysisError::Internal(format!("result document: {e}")))
+}
+
+/// Run the estimator of `req`: the result document as JSON bytes (as [`run`] gives it,
+/// without parsing it back) and its footer (counts of accepted and rejected regions).
+///
+/// # Errors
+/// As [`run`].
+pub fn run_bytes(req: &Request) -> Result<(Vec<u8>, Footer), AnalysisError> {
+    let mut sink = FooterSink {
+        inner: JsonSink::new(Vec::new()),
+        footer: Footer::default(),
+    };
+    crate::pipeline::run(req, &mut sink, "result document")?;
+    Ok((sink.inner.into_inner(), sink.footer))
+}
+
+/// A JSON sink that keeps a copy of the footer it is finished with.
+struct FooterSink {
+    inner: JsonSink<Vec<u8>>,
+    footer: Footer,
+}
+
+impl RowSink for FooterSink {
+    fn begin(&mut self, header: &Header, sections: &[Section]) -> std::io::Result<()> {
+        self.inner.begin(header, sections)
+    }
+    fn section(&mut self, name: &str) -> std::io::Result<()> {
+        self.inner.section(name)
+    }
+    fn row(&mut self, cells: &[Cell]) -> std::io::Result<()> {
+        self.inner.row(cells)
+    }
+    fn finish(&mut self, footer: &Footer) -> std::io::Result<()> {
+        self.footer = footer.clone();
+        self.inner.finish(footer)
+    }
+}
+
+/// Why no region of a run has a result, from its footer.
+pub fn footer_reasons(footer: &Footer) -> String {
+    if footer.rejected_by_reason.is_empty() {
+        "no region could be computed".to_owned()
+    } else {
+        let reasons: Vec<&str> = footer
+            .rejected_by_reason
+            .iter()
+            .map(|(r, _)| r.as_str())
+            .collect();
+        format!("no region could be computed: {}", reasons.join("; "))
+    }
 }
 
 /// The number of regions with a result (`summary.accepted`) of a document.

@@ -3,6 +3,8 @@
 
 use axum::Json;
 use axum::extract::State;
+use axum::http::header;
+use axum::response::{IntoResponse, Response};
 use kinema_core::rosette::Gauge;
 use serde::Deserialize;
 use serde_json::Value;
@@ -212,7 +214,7 @@ pub fn strain_field(
     options: &FieldOptions,
     length_unit: LengthUnit,
     strain_unit: StrainUnit,
-) -> Result<Value, AnalysisError> {
+) -> Result<Vec<u8>, AnalysisError> {
     let errs = params::validate(method, options);
     if !errs.is_empty() {
         return Err(AnalysisError::Invalid(errs));
@@ -226,9 +228,11 @@ pub fn strain_field(
         strain_unit,
         "request body",
     )?;
-    let doc = field::run(&req)?;
-    if field::accepted(&doc) == 0 {
-        return Err(AnalysisError::NotComputable(field::rejection_reasons(&doc)));
+    // The document goes out as the pipeline wrote it: parsing a multi-megabyte result
+    // back into a JSON value only to write it again would cost more than the estimate.
+    let (doc, footer) = field::run_bytes(&req)?;
+    if footer.accepted == 0 {
+        return Err(AnalysisError::NotComputable(field::footer_reasons(&footer)));
     }
     Ok(doc)
 }
@@ -257,7 +261,7 @@ pub async fn compute_strain_field(
     State(state): State<AppState>,
     caller: Caller,
     ApiJson(body): ApiJson<StrainFieldInput>,
-) -> Result<Json<Value>, ApiError> {
+) -> Result<Response, ApiError> {
     caller.require(Scope::Read)?;
     let (dim, pts) = check_points(&body.points, body.length_unit, state.limits.max_points)?;
     let doc = tokio::task::spawn_blocking(move || {
@@ -272,7 +276,7 @@ pub async fn compute_strain_field(
     })
     .await
     .map_err(|e| ApiError::Internal(format!("strain-field task: {e}")))??;
-    Ok(Json(doc))
+    Ok(([(header::CONTENT_TYPE, "application/json")], doc).into_response())
 }
 
 /// One strain gauge of a rosette.
