@@ -73,7 +73,7 @@ fn readings(keys: &[i64], n: usize) -> Vec<NewReading> {
 /// Readings/s through the batch writer, in chunks of [`CHUNK`], commit included.
 async fn writer(store: &DynStore, rows: &[NewReading]) -> f64 {
     let t0 = Instant::now();
-    let mut w = store.begin_batch(ID).await.expect("begin");
+    let mut w = store.begin_batch(ID, None).await.expect("begin");
     for chunk in rows.chunks(CHUNK) {
         w.write(chunk).await.expect("write");
     }

@@ -28,7 +28,7 @@ use crate::ingest::body::BodyReader;
 use crate::ingest::validate::parse_epoch;
 use crate::ingest::{self, Context, IngestError, Sink};
 use crate::keys::hex;
-use crate::model::{Batch, Scope, from_unix_micros, now_utc, to_unix_micros};
+use crate::model::{Batch, IdempotentBatch, Scope, from_unix_micros, now_utc, to_unix_micros};
 use crate::store::BatchMeta;
 use crate::units::LengthUnit;
 
@@ -83,6 +83,28 @@ pub struct BatchInput {
 pub struct BatchQuery {
     /// Unit of the values, `m` or `mm` (default: the structure's unit).
     pub length_unit: Option<String>,
+}
+
+/// The answer to a request whose `Idempotency-Key` already has a batch: the first
+/// response again when the request is the same (body, media type, unit), else 422.
+async fn replay(
+    id: &str,
+    key: &str,
+    prev: IdempotentBatch,
+    media: Media,
+    unit: Option<LengthUnit>,
+    body: Body,
+    limit: u64,
+) -> Result<Response, ApiError> {
+    let sha = hash_body(body, limit).await?;
+    if request_fingerprint(media, unit, &sha) == prev.body_sha256 {
+        return Ok(created(id, prev.batch.id, &prev.response, true));
+    }
+    Err(ApiError::IdempotencyMismatch(format!(
+        "the Idempotency-Key {key:?} was used for another request (another body, media type \
+         or length_unit; batch {}); use a new key for new readings",
+        prev.batch.id
+    )))
 }
 
 /// What an `Idempotency-Key` is bound to: SHA-256 (hex) over the media type, the
@@ -265,21 +287,22 @@ pub async fn post_batch(
     let from_query = query_unit(&q)?;
     let key = idempotency_key(&headers)?;
     let limit = state.limits.max_batch_bytes;
+    // Look for the key before opening a transaction (the usual retry of a finished
+    // request), and again once the writer holds the key's lock: a retry that arrived
+    // while the first request was still writing then finds its batch and replays it.
     if let Some(k) = &key
         && let Some(prev) = state.store.batch_by_idempotency_key(&id, k).await?
     {
-        let sha = hash_body(body, limit).await?;
-        if request_fingerprint(media, from_query, &sha) == prev.body_sha256 {
-            return Ok(created(&id, prev.batch.id, &prev.response, true));
-        }
-        return Err(ApiError::IdempotencyMismatch(format!(
-            "the Idempotency-Key {k:?} was used for another request (another body, media type or \
-             length_unit; batch {}); use a new key for new readings",
-            prev.batch.id
-        )));
+        return replay(&id, k, prev, media, from_query, body, limit).await;
     }
     let received_at = now_utc();
-    let mut writer = state.store.begin_batch(&id).await?;
+    let mut writer = state.store.begin_batch(&id, key.as_deref()).await?;
+    if let Some(k) = &key
+        && let Some(prev) = state.store.batch_by_idempotency_key(&id, k).await?
+    {
+        drop(writer);
+        return replay(&id, k, prev, media, from_query, body, limit).await;
+    }
     let ctx = Context {
         dimension: writer.dimension(),
         points: writer.points(),

@@ -179,7 +179,16 @@ pub trait Store: Send + Sync + 'static {
     /// Start writing a sensor batch into structure `structure` (one transaction;
     /// in PostgreSQL the structure row is share-locked so that its points cannot
     /// change meanwhile). [`StoreError::NotFound`] when the structure does not exist.
-    async fn begin_batch(&self, structure: &str) -> Result<Box<dyn BatchWriter>, StoreError>;
+    ///
+    /// With an `idempotency_key`, writers of the same structure and key are serialised:
+    /// the second one starts only when the first has committed or rolled back, so that
+    /// it can find the first one's batch and replay it (SQLite: the single write lock;
+    /// PostgreSQL: a transaction-scoped advisory lock on the structure and key).
+    async fn begin_batch(
+        &self,
+        structure: &str,
+        idempotency_key: Option<&str>,
+    ) -> Result<Box<dyn BatchWriter>, StoreError>;
 
     /// One batch of a structure.
     async fn get_batch(&self, structure: &str, id: Uuid) -> Result<Option<Batch>, StoreError>;

@@ -419,8 +419,9 @@ macro_rules! impl_store {
                 async fn begin_batch(
                     &self,
                     structure: &str,
+                    idempotency_key: Option<&str>,
                 ) -> Result<Box<dyn BatchWriter>, StoreError> {
-                    batches::begin_batch(self, structure).await
+                    batches::begin_batch(self, structure, idempotency_key).await
                 }
 
                 async fn get_batch(

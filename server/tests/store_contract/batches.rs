@@ -59,7 +59,7 @@ async fn write(
     rows: &[Row<'_>],
     key: Option<&str>,
 ) -> Result<kinema_server::model::Batch, StoreError> {
-    let mut w = store.begin_batch(id).await?;
+    let mut w = store.begin_batch(id, None).await?;
     let pts = w.points();
     let chunk: Vec<NewReading> = rows
         .iter()
@@ -168,7 +168,7 @@ async fn epochs_are_listed_with_counts_and_bounds(store: DynStore) {
 
 async fn dropped_writer_leaves_nothing(store: DynStore) {
     setup(&store, "W3").await;
-    let mut w = store.begin_batch("W3").await.expect("begin");
+    let mut w = store.begin_batch("W3", None).await.expect("begin");
     let k = w.points()["P1"];
     w.write(&[NewReading {
         point_key: k,
@@ -197,13 +197,13 @@ async fn dropped_writer_leaves_nothing(store: DynStore) {
     write(&store, "W3", &[("P1", T1, 0.0, 0.0, None)], None)
         .await
         .expect("batch after rollback");
-    let empty = store.begin_batch("W3").await.expect("begin");
+    let empty = store.begin_batch("W3", None).await.expect("begin");
     assert!(matches!(
         empty.commit(meta(None)).await,
         Err(StoreError::Invalid(_))
     ));
     assert!(matches!(
-        store.begin_batch("nope").await.err(),
+        store.begin_batch("nope", None).await.err(),
         Some(StoreError::NotFound(_))
     ));
 }
@@ -354,7 +354,7 @@ async fn three_d_readings_keep_uz_and_sigma_z(store: DynStore) {
         )
         .await
         .expect("points");
-    let mut w = store.begin_batch("D3").await.expect("begin");
+    let mut w = store.begin_batch("D3", None).await.expect("begin");
     assert_eq!(w.dimension(), 3);
     let k = w.points()["A"];
     w.write(&[NewReading {

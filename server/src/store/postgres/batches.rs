@@ -87,8 +87,17 @@ fn encode_copy(
 pub(super) async fn begin_batch(
     store: &PgStore,
     structure: &str,
+    idempotency_key: Option<&str>,
 ) -> Result<Box<dyn BatchWriter>, StoreError> {
     let mut tx = store.pool.begin().await?;
+    if let Some(key) = idempotency_key {
+        // Requests with one structure and key queue here until the first one ends; the
+        // lock goes with the transaction.
+        sqlx::query("SELECT pg_advisory_xact_lock(hashtextextended($1, 0))")
+            .bind(format!("kinema-batch\n{structure}\n{key}"))
+            .execute(&mut *tx)
+            .await?;
+    }
     let found: Option<(i64, i16)> =
         sqlx::query_as("SELECT key, dimension FROM structures WHERE id = $1 FOR SHARE")
             .bind(structure)

@@ -82,6 +82,8 @@ async fn structure_of(
 pub(super) async fn begin_batch(
     store: &SqliteStore,
     structure: &str,
+    // BEGIN IMMEDIATE already serialises every writer, whatever its key.
+    _idempotency_key: Option<&str>,
 ) -> Result<Box<dyn BatchWriter>, StoreError> {
     let mut tx = store.write_tx().await?;
     let (structure_key, dimension, points) = structure_of(&mut tx, structure).await?;
