@@ -612,3 +612,80 @@ macro_rules! analyses_sql {
 }
 
 pub(crate) use analyses_sql;
+
+/// The reads of stored batches and readings for one backend. `id_order` makes point IDs
+/// sort by their bytes: `""` in SQLite (BINARY is its default), `" COLLATE \"C\""` in
+/// PostgreSQL (whose default collation follows the locale).
+macro_rules! batch_reads_sql {
+    (pool = $Pool:ty, time = $Time:ty, id_order = $id_order:literal $(,)?) => {
+        pub(super) async fn get_batch(
+            pool: &$Pool,
+            structure: &str,
+            id: Uuid,
+        ) -> Result<Option<Batch>, StoreError> {
+            sqlx::query_as::<_, BatchRow<$Time>>(concat!(
+                "SELECT ",
+                batch_columns!(),
+                " FROM batches b JOIN structures s ON s.key = b.structure_key \
+                 WHERE s.id = $1 AND b.id = $2"
+            ))
+            .bind(structure)
+            .bind(id)
+            .fetch_optional(pool)
+            .await?
+            .map(BatchRow::into_batch)
+            .transpose()
+        }
+
+        pub(super) async fn batch_by_idempotency_key(
+            pool: &$Pool,
+            structure: &str,
+            key: &str,
+        ) -> Result<Option<IdempotentBatch>, StoreError> {
+            sqlx::query_as::<_, IdempotentRow<$Time>>(concat!(
+                "SELECT ",
+                batch_columns!(),
+                ", b.body_sha256, b.response FROM batches b JOIN structures s ON s.key = b.structure_key \
+                 WHERE s.id = $1 AND b.idempotency_key = $2"
+            ))
+            .bind(structure)
+            .bind(key)
+            .fetch_optional(pool)
+            .await?
+            .map(IdempotentRow::into_idempotent)
+            .transpose()
+        }
+
+        pub(super) async fn readings_at(
+            pool: &$Pool,
+            structure: &str,
+            epoch: OffsetDateTime,
+        ) -> Result<Vec<Reading>, StoreError> {
+            let dim: Option<(i16,)> = sqlx::query_as("SELECT dimension FROM structures WHERE id = $1")
+                .bind(structure)
+                .fetch_optional(pool)
+                .await?;
+            let Some((dim,)) = dim else {
+                return Ok(Vec::new());
+            };
+            let dim = u8::try_from(dim).map_err(StoreError::corrupt)?;
+            sqlx::query_as::<_, ReadingRow<$Time>>(concat!(
+                "SELECT ",
+                reading_columns!(),
+                " FROM readings r JOIN structures s ON s.key = r.structure_key \
+                 JOIN points p ON p.key = r.point_key \
+                 WHERE s.id = $1 AND r.epoch = $2 ORDER BY p.id",
+                $id_order
+            ))
+            .bind(structure)
+            .bind(<$Time as $crate::store::rows::DbTime>::from_time(epoch))
+            .fetch_all(pool)
+            .await?
+            .into_iter()
+            .map(|r| r.into_reading(dim))
+            .collect()
+        }
+    };
+}
+
+pub(crate) use batch_reads_sql;

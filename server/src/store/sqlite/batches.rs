@@ -255,25 +255,6 @@ fn bind_row<'q>(
         .bind(batch_id)
 }
 
-pub(super) async fn get_batch(
-    pool: &SqlitePool,
-    structure: &str,
-    id: Uuid,
-) -> Result<Option<Batch>, StoreError> {
-    sqlx::query_as::<_, BatchRow<i64>>(concat!(
-        "SELECT ",
-        batch_columns!(),
-        " FROM batches b JOIN structures s ON s.key = b.structure_key \
-         WHERE s.id = $1 AND b.id = $2"
-    ))
-    .bind(structure)
-    .bind(id)
-    .fetch_optional(pool)
-    .await?
-    .map(BatchRow::into_batch)
-    .transpose()
-}
-
 pub(super) async fn list_batches(
     pool: &SqlitePool,
     structure: &str,
@@ -299,25 +280,6 @@ pub(super) async fn list_batches(
     .into_iter()
     .map(BatchRow::into_batch)
     .collect()
-}
-
-pub(super) async fn batch_by_idempotency_key(
-    pool: &SqlitePool,
-    structure: &str,
-    key: &str,
-) -> Result<Option<IdempotentBatch>, StoreError> {
-    sqlx::query_as::<_, IdempotentRow<i64>>(concat!(
-        "SELECT ",
-        batch_columns!(),
-        ", b.body_sha256, b.response FROM batches b JOIN structures s ON s.key = b.structure_key \
-         WHERE s.id = $1 AND b.idempotency_key = $2"
-    ))
-    .bind(structure)
-    .bind(key)
-    .fetch_optional(pool)
-    .await?
-    .map(IdempotentRow::into_idempotent)
-    .transpose()
 }
 
 pub(super) async fn list_epochs(
@@ -346,31 +308,4 @@ pub(super) async fn list_epochs(
         .collect()
 }
 
-pub(super) async fn readings_at(
-    pool: &SqlitePool,
-    structure: &str,
-    epoch: OffsetDateTime,
-) -> Result<Vec<Reading>, StoreError> {
-    let dim: Option<(i16,)> = sqlx::query_as("SELECT dimension FROM structures WHERE id = $1")
-        .bind(structure)
-        .fetch_optional(pool)
-        .await?;
-    let Some((dim,)) = dim else {
-        return Ok(Vec::new());
-    };
-    let dim = u8::try_from(dim).map_err(StoreError::corrupt)?;
-    sqlx::query_as::<_, ReadingRow<i64>>(concat!(
-        "SELECT ",
-        reading_columns!(),
-        " FROM readings r JOIN structures s ON s.key = r.structure_key \
-         JOIN points p ON p.key = r.point_key \
-         WHERE s.id = $1 AND r.epoch = $2 ORDER BY p.id"
-    ))
-    .bind(structure)
-    .bind(to_unix_micros(epoch))
-    .fetch_all(pool)
-    .await?
-    .into_iter()
-    .map(|r| r.into_reading(dim))
-    .collect()
-}
+crate::store::shared::batch_reads_sql!(pool = sqlx::SqlitePool, time = i64, id_order = "",);
