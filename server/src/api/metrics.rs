@@ -160,9 +160,25 @@ impl Metrics {
     }
 }
 
+/// The method label: the standard methods by name, any other (extension) method as
+/// `OTHER`, so that clients cannot grow the label set without bound.
+fn method_label(m: &axum::http::Method) -> &'static str {
+    use axum::http::Method;
+    match *m {
+        Method::GET => "GET",
+        Method::POST => "POST",
+        Method::PUT => "PUT",
+        Method::DELETE => "DELETE",
+        Method::PATCH => "PATCH",
+        Method::HEAD => "HEAD",
+        Method::OPTIONS => "OPTIONS",
+        _ => "OTHER",
+    }
+}
+
 /// Middleware: count the request and its latency under its route template.
 pub async fn record(State(metrics): State<Arc<Metrics>>, req: Request, next: Next) -> Response {
-    let method = req.method().as_str().to_owned();
+    let method = method_label(req.method()).to_owned();
     let route = req
         .extensions()
         .get::<MatchedPath>()
@@ -196,6 +212,13 @@ mod tests {
         assert!(text.contains("route=\"/healthz\",le=\"0.005\"} 1"));
         assert!(text.contains("route=\"/healthz\",le=\"5\"} 2"));
         assert!(text.contains("route=\"/healthz\",le=\"+Inf\"} 2"));
+    }
+
+    #[test]
+    fn extension_methods_share_one_label() {
+        let odd = axum::http::Method::from_bytes(b"FROBNICATE").expect("a method");
+        assert_eq!(method_label(&odd), "OTHER");
+        assert_eq!(method_label(&axum::http::Method::PUT), "PUT");
     }
 
     #[test]
