@@ -39,6 +39,13 @@ async fn an_admin_creates_a_key_that_works_with_its_scope_and_list(b: Backend) {
     let id = r.json["key"]["id"].as_str().expect("id").to_owned();
     assert_eq!(r.headers["location"], format!("/v1/keys/{id}"));
     let token = r.json["token"].as_str().expect("token").to_owned();
+    // The Location answers with the key, without its token.
+    let got = app
+        .call(Method::GET, &format!("/v1/keys/{id}"), Some(&admin), None)
+        .await;
+    assert_eq!(got.status, 200, "{}", got.json);
+    assert_eq!(got.json, r.json["key"]);
+    assert!(!String::from_utf8_lossy(&got.bytes).contains(&token));
     assert_eq!(r.json["key"]["scope"], "write");
     assert_eq!(r.json["key"]["structures"], json!(["WALL-1"]));
     // The new key writes its own structure and sees no other.

@@ -24,7 +24,7 @@ pub const MAX_LABEL: usize = 200;
 pub fn routes() -> OpenApiRouter<AppState> {
     OpenApiRouter::new()
         .routes(routes!(list_keys, create_key))
-        .routes(routes!(revoke_key))
+        .routes(routes!(get_key, revoke_key))
 }
 
 /// Key management needs the admin scope and a key not limited to some structures (a
@@ -129,6 +129,39 @@ pub async fn list_keys(
     Ok(axum::Json(state.store.list_keys().await?))
 }
 
+/// The key's ID from the path, or a 422 naming it.
+fn key_id(raw: &str) -> Result<Uuid, ApiError> {
+    Uuid::parse_str(raw).map_err(|_| ApiError::field("/key_id", format!("{raw:?} is not a UUID")))
+}
+
+/// One key (never its token), revoked or not; the `Location` of a created key.
+#[utoipa::path(get, path = "/v1/keys/{key_id}", tag = "keys",
+    params(("key_id" = Uuid, Path, description = "The key's ID")),
+    security(("api_key" = [])),
+    responses(
+        (status = 200, description = "The key", body = ApiKey),
+        (status = 401, description = "No valid API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Not an unrestricted admin key", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No key has this ID", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "Not a UUID", body = Problem, content_type = "application/problem+json"),
+    ))]
+pub async fn get_key(
+    State(state): State<AppState>,
+    caller: Caller,
+    Path(raw): Path<String>,
+) -> Result<axum::Json<ApiKey>, ApiError> {
+    require_key_admin(&caller)?;
+    let id = key_id(&raw)?;
+    state
+        .store
+        .list_keys()
+        .await?
+        .into_iter()
+        .find(|k| k.id == id)
+        .map(axum::Json)
+        .ok_or_else(|| ApiError::NotFound(format!("no key has ID {id}")))
+}
+
 /// Revoke a key; it gets 401 from then on.
 #[utoipa::path(delete, path = "/v1/keys/{key_id}", tag = "keys",
     params(("key_id" = Uuid, Path, description = "The key's ID")),
@@ -142,11 +175,10 @@ pub async fn list_keys(
 pub async fn revoke_key(
     State(state): State<AppState>,
     caller: Caller,
-    Path(key_id): Path<String>,
+    Path(raw): Path<String>,
 ) -> Result<StatusCode, ApiError> {
     require_key_admin(&caller)?;
-    let key_id = Uuid::parse_str(&key_id)
-        .map_err(|_| ApiError::field("/key_id", format!("{key_id:?} is not a UUID")))?;
+    let key_id = key_id(&raw)?;
     if state.store.revoke_key(key_id).await? {
         Ok(StatusCode::NO_CONTENT)
     } else {
