@@ -82,6 +82,7 @@ async fn writer(store: &DynStore, rows: &[NewReading]) -> f64 {
         media_type: "text/csv".into(),
         idempotency_key: None,
         body_sha256: "0".repeat(64),
+        jobs: Vec::new(),
     })
     .await
     .expect("commit");

@@ -1,8 +1,10 @@
 //! # kinema-server
 //!
-//! Everything of Kinema that does I/O. For now: the offline `kinema analyze`
-//! command's input readers ([`input`]), result writers ([`output`]), units
-//! ([`units`]) and command-line arguments ([`cli`]).
+//! Everything of Kinema that does I/O: the offline `kinema analyze` command (its
+//! input readers [`input`], result writers [`output`] and arguments [`cli`]), and the
+//! monitoring service: the HTTP API ([`api`]), storage ([`store`]), sensor-batch
+//! ingestion ([`ingest`]), stored analyses ([`analysis`]), and the monitoring loop's
+//! settings ([`settings`]).
 //!
 //! Results are kinematic estimates from measured displacements, not a structural
 //! assessment; alert levels and decisions rest with the responsible engineer, local
@@ -18,5 +20,6 @@ pub mod keys;
 pub mod model;
 pub mod output;
 pub mod pipeline;
+pub mod settings;
 pub mod store;
 pub mod units;

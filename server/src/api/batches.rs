@@ -341,6 +341,7 @@ pub async fn post_batch(
             media_type: media.label().to_owned(),
             idempotency_key: key,
             body_sha256: request_fingerprint(media, from_query, &outcome.body_sha256),
+            jobs: Vec::new(),
         })
         .await?;
     state.metrics.batch_ingested(batch.readings);

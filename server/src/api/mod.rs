@@ -37,6 +37,7 @@ use utoipa::{Modify, OpenApi};
 use utoipa_axum::router::OpenApiRouter;
 use utoipa_swagger_ui::SwaggerUi;
 
+use crate::settings::Settings;
 use crate::store::DynStore;
 
 /// Limits of the service; each is a `kinema serve` flag and a `KINEMA_*` variable.
@@ -78,15 +79,23 @@ pub struct AppState {
     pub limits: Arc<Limits>,
     /// Request and domain counters for `/metrics`.
     pub metrics: Arc<metrics::Metrics>,
+    /// Settings of jobs and webhooks.
+    pub settings: Arc<Settings>,
 }
 
 impl AppState {
-    /// State over `store` with `limits` and fresh metrics.
+    /// State over `store` with `limits`, default settings and fresh metrics.
     pub fn new(store: DynStore, limits: Limits) -> Self {
+        Self::with_settings(store, limits, Settings::default())
+    }
+
+    /// State over `store` with `limits`, `settings` and fresh metrics.
+    pub fn with_settings(store: DynStore, limits: Limits, settings: Settings) -> Self {
         Self {
             store,
             limits: Arc::new(limits),
             metrics: Arc::new(metrics::Metrics::default()),
+            settings: Arc::new(settings),
         }
     }
 }

@@ -10,6 +10,7 @@
 //! - SQL binds every value (never formats one in).
 
 pub mod error;
+mod monitor_sql;
 pub mod postgres;
 mod rows;
 mod shared;
@@ -24,8 +25,10 @@ use uuid::Uuid;
 
 pub use self::error::StoreError;
 use crate::model::{
-    Analysis, AnalysisQuery, ApiKey, Batch, EpochSummary, IdempotentBatch, Reading, StoredPoint,
-    Structure,
+    AlertEvent, AlertEventQuery, AlertRuleRecord, AlertState, Analysis, AnalysisQuery, ApiKey,
+    Batch, Delivery, DeliveryAttempt, DeliveryNext, DeliveryQuery, DispatchBatch, EpochSummary,
+    Evaluation, IdempotentBatch, Job, JobOutcome, JobQuery, Lease, NewJob, Reading, StoredPoint,
+    Structure, Subscription,
 };
 
 /// Which database a store talks to.
@@ -91,6 +94,27 @@ pub struct BatchMeta {
     pub idempotency_key: Option<String>,
     /// SHA-256 of the body, lowercase hex.
     pub body_sha256: String,
+    /// Jobs to queue in the same transaction (the structure's automatic analysis of the
+    /// batch's epochs); empty when it has none.
+    pub jobs: Vec<NewJob>,
+}
+
+/// How alert rules are applied to a finished analysis inside the store's transaction:
+/// `(structure, rules, current states, analysis, now) → changes`. The service passes
+/// [`crate::alerts::evaluate`]; tests may pass their own.
+pub type Evaluator = dyn Fn(&Structure, &[AlertRuleRecord], &[AlertState], &Analysis, OffsetDateTime) -> Evaluation
+    + Send
+    + Sync;
+
+/// What [`Store::complete_job`] stored.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Completed {
+    /// The job as it is now (ended, or queued again for a retry).
+    pub job: Job,
+    /// The alert events recorded, in order.
+    pub alert_events: Vec<AlertEvent>,
+    /// How many webhook deliveries were queued.
+    pub deliveries: u64,
 }
 
 /// A batch being written: one open transaction. Chunks of readings go in with
@@ -243,6 +267,177 @@ pub trait Store: Send + Sync + 'static {
         structure: &str,
         q: &AnalysisQuery,
     ) -> Result<Vec<Analysis>, StoreError>;
+
+    // ---- jobs ----
+
+    /// Queue a job. [`StoreError::NotFound`] when the structure does not exist.
+    async fn enqueue_job(&self, job: &NewJob) -> Result<Job, StoreError>;
+
+    /// One job by ID (of any structure; the caller checks access by `structure_id`).
+    async fn get_job(&self, id: Uuid) -> Result<Option<Job>, StoreError>;
+
+    /// Jobs of `structure` matching `q`, newest first by `(created_at, id)`.
+    async fn list_jobs(&self, structure: &str, q: &JobQuery) -> Result<Vec<Job>, StoreError>;
+
+    /// Claim the oldest claimable job for `worker` with a lease until `lease_until`:
+    /// a `queued` job whose `run_after` is at or before `now`, or a `running` job whose
+    /// lease expired before `now` (its lost attempt is recorded as an error, `lease
+    /// expired`). A claimable job that has used all its attempts is not claimed but
+    /// failed, with an `analysis.failed` event and its deliveries, in the same
+    /// transaction. PostgreSQL claims with `FOR UPDATE SKIP LOCKED`, so that workers
+    /// in several processes never claim the same job at once. Returns the claimed job
+    /// (status `running`, `attempts` counted) and its lease; `None` when there is none.
+    async fn claim_job(
+        &self,
+        worker: &str,
+        now: OffsetDateTime,
+        lease_until: OffsetDateTime,
+    ) -> Result<Option<(Job, Lease)>, StoreError>;
+
+    /// Extend a current lease to `lease_until`. [`StoreError::Conflict`] when the lease
+    /// is not current (expired and claimed by another worker, or the job ended).
+    async fn renew_lease(
+        &self,
+        lease: &Lease,
+        lease_until: OffsetDateTime,
+    ) -> Result<(), StoreError>;
+
+    /// End an attempt, all in one transaction, only while `lease` is current
+    /// ([`StoreError::Conflict`] otherwise, and nothing is written: this is what keeps
+    /// one result per job).
+    ///
+    /// - [`JobOutcome::Analysis`]: store the analysis, link it to the job, end the job
+    ///   (`succeeded` or `failed` after the analysis's status), apply `evaluate` to the
+    ///   structure's rules and states (PostgreSQL locks the structure row first, so that
+    ///   evaluations of one structure do not interleave), write its states and alert
+    ///   events, and record the `analysis.*` event and the `alert.raised` /
+    ///   `alert.cleared` events with a delivery for every matching subscription.
+    /// - [`JobOutcome::Error`]: record the error; queue the job again for `retry_at`,
+    ///   or, when it has used all its attempts, fail it with an `analysis.failed` event.
+    async fn complete_job(
+        &self,
+        lease: &Lease,
+        outcome: &JobOutcome,
+        evaluate: &Evaluator,
+        now: OffsetDateTime,
+    ) -> Result<Completed, StoreError>;
+
+    // ---- automatic analysis ----
+
+    /// Set (`Some`) or remove (`None`) the automatic analysis of a structure (a JSON
+    /// object validated by the API). [`StoreError::NotFound`] when the structure does
+    /// not exist.
+    async fn put_auto_analysis(
+        &self,
+        structure: &str,
+        config: Option<&serde_json::Value>,
+    ) -> Result<(), StoreError>;
+
+    /// The automatic analysis of a structure, if it has one.
+    async fn get_auto_analysis(
+        &self,
+        structure: &str,
+    ) -> Result<Option<serde_json::Value>, StoreError>;
+
+    // ---- alerts ----
+
+    /// Create or replace rule `r.id` of structure `r.structure_id` (`created_at` of an
+    /// existing rule is kept). Replacing a rule keeps its states. [`StoreError::NotFound`]
+    /// when the structure does not exist; [`StoreError::Conflict`] when the ID belongs
+    /// to a rule of another structure.
+    async fn put_alert_rule(&self, r: &AlertRuleRecord) -> Result<Written, StoreError>;
+
+    /// One rule of a structure.
+    async fn get_alert_rule(
+        &self,
+        structure: &str,
+        id: Uuid,
+    ) -> Result<Option<AlertRuleRecord>, StoreError>;
+
+    /// The rules of a structure, oldest first.
+    async fn list_alert_rules(&self, structure: &str) -> Result<Vec<AlertRuleRecord>, StoreError>;
+
+    /// Delete a rule with its states (its events stay in the log); false when it did
+    /// not exist.
+    async fn delete_alert_rule(&self, structure: &str, id: Uuid) -> Result<bool, StoreError>;
+
+    /// The current alert states of a structure, by rule then region.
+    async fn list_alert_states(&self, structure: &str) -> Result<Vec<AlertState>, StoreError>;
+
+    /// Alert events of a structure matching `q`, oldest first by `seq`.
+    async fn list_alert_events(
+        &self,
+        structure: &str,
+        q: &AlertEventQuery,
+    ) -> Result<Vec<AlertEvent>, StoreError>;
+
+    // ---- webhooks ----
+
+    /// Store a new subscription (its ID must be new). [`StoreError::NotFound`] when it
+    /// names a structure that does not exist.
+    async fn insert_subscription(&self, s: &Subscription) -> Result<(), StoreError>;
+
+    /// One subscription, with its secret.
+    async fn get_subscription(&self, id: Uuid) -> Result<Option<Subscription>, StoreError>;
+
+    /// All subscriptions, oldest first; only those of `structure` (not the global ones)
+    /// when given.
+    async fn list_subscriptions(
+        &self,
+        structure: Option<&str>,
+    ) -> Result<Vec<Subscription>, StoreError>;
+
+    /// Delete a subscription with its deliveries and their log; false when it did not
+    /// exist.
+    async fn delete_subscription(&self, id: Uuid) -> Result<bool, StoreError>;
+
+    /// Deliveries of a subscription matching `q`, oldest first by `seq`.
+    async fn list_deliveries(
+        &self,
+        subscription: Uuid,
+        q: &DeliveryQuery,
+    ) -> Result<Vec<Delivery>, StoreError>;
+
+    /// One delivery of a subscription with its attempts, oldest first.
+    async fn get_delivery(
+        &self,
+        subscription: Uuid,
+        id: Uuid,
+    ) -> Result<Option<(Delivery, Vec<DeliveryAttempt>)>, StoreError>;
+
+    /// Queue the event of a delivery again for its subscription, as a new delivery at
+    /// the end of the subscription's order, due at `now` (same event ID and body).
+    /// `None` when the subscription has no such delivery.
+    async fn replay_delivery(
+        &self,
+        subscription: Uuid,
+        id: Uuid,
+        now: OffsetDateTime,
+    ) -> Result<Option<Delivery>, StoreError>;
+
+    /// Claim, for dispatcher `worker` until `lease_until`, one subscription that has a
+    /// pending delivery due at `now` and no other dispatcher's live claim, and return
+    /// its pending deliveries from the oldest on (at most `max`), each with its event.
+    /// PostgreSQL claims with `FOR UPDATE SKIP LOCKED`. `None` when nothing is due.
+    async fn claim_dispatch(
+        &self,
+        worker: &str,
+        now: OffsetDateTime,
+        lease_until: OffsetDateTime,
+        max: usize,
+    ) -> Result<Option<DispatchBatch>, StoreError>;
+
+    /// Log an attempt of a delivery and move it on (`next`), while `worker` holds the
+    /// subscription's claim ([`StoreError::Conflict`] otherwise, and nothing is written).
+    async fn record_attempt(
+        &self,
+        worker: &str,
+        attempt: &DeliveryAttempt,
+        next: DeliveryNext,
+    ) -> Result<(), StoreError>;
+
+    /// Give up `worker`'s claim on a subscription (no error when it holds none).
+    async fn release_dispatch(&self, worker: &str, subscription: Uuid) -> Result<(), StoreError>;
 }
 
 /// A shared handle to the store chosen at start-up.

@@ -328,7 +328,7 @@ macro_rules! common_sql {
 pub(crate) use common_sql;
 
 /// The `Store` implementation of one backend: every method delegates to the backend's
-/// `common`, `batches` and `analyses` modules, which have the same function names and
+/// `common`, `batches`, `analyses` and `monitor` modules, which have the same function names and
 /// signatures in both backends.
 macro_rules! impl_store {
     (store = $Store:ty, backend = $backend:expr, migrations = $migrations:literal $(,)?) => {
@@ -337,10 +337,14 @@ macro_rules! impl_store {
             use time::OffsetDateTime;
             use uuid::Uuid;
             use $crate::model::{
-                Analysis, AnalysisQuery, ApiKey, Batch, EpochSummary, IdempotentBatch, Reading,
-                StoredPoint, Structure,
+                AlertEvent, AlertEventQuery, AlertRuleRecord, AlertState, Analysis, AnalysisQuery,
+                ApiKey, Batch, Delivery, DeliveryAttempt, DeliveryNext, DeliveryQuery,
+                DispatchBatch, EpochSummary, IdempotentBatch, Job, JobOutcome, JobQuery, Lease,
+                NewJob, Reading, StoredPoint, Structure, Subscription,
             };
-            use $crate::store::{Backend, BatchWriter, PointsWritten, StoreError, Written};
+            use $crate::store::{
+                Backend, BatchWriter, Completed, Evaluator, PointsWritten, StoreError, Written,
+            };
 
             #[async_trait::async_trait]
             impl $crate::store::Store for $Store {
@@ -484,6 +488,180 @@ macro_rules! impl_store {
                     q: &AnalysisQuery,
                 ) -> Result<Vec<Analysis>, StoreError> {
                     analyses::list_analyses(&self.pool, structure, q).await
+                }
+
+                async fn enqueue_job(&self, job: &NewJob) -> Result<Job, StoreError> {
+                    monitor::enqueue_job(self, job).await
+                }
+
+                async fn get_job(&self, id: Uuid) -> Result<Option<Job>, StoreError> {
+                    monitor::get_job(&self.pool, id).await
+                }
+
+                async fn list_jobs(
+                    &self,
+                    structure: &str,
+                    q: &JobQuery,
+                ) -> Result<Vec<Job>, StoreError> {
+                    monitor::list_jobs(&self.pool, structure, q).await
+                }
+
+                async fn claim_job(
+                    &self,
+                    worker: &str,
+                    now: OffsetDateTime,
+                    lease_until: OffsetDateTime,
+                ) -> Result<Option<(Job, Lease)>, StoreError> {
+                    monitor::claim_job(self, worker, now, lease_until).await
+                }
+
+                async fn renew_lease(
+                    &self,
+                    lease: &Lease,
+                    lease_until: OffsetDateTime,
+                ) -> Result<(), StoreError> {
+                    monitor::renew_lease(self, lease, lease_until).await
+                }
+
+                async fn complete_job(
+                    &self,
+                    lease: &Lease,
+                    outcome: &JobOutcome,
+                    evaluate: &Evaluator,
+                    now: OffsetDateTime,
+                ) -> Result<Completed, StoreError> {
+                    monitor::complete_job(self, lease, outcome, evaluate, now).await
+                }
+
+                async fn put_auto_analysis(
+                    &self,
+                    structure: &str,
+                    config: Option<&serde_json::Value>,
+                ) -> Result<(), StoreError> {
+                    monitor::put_auto_analysis(self, structure, config).await
+                }
+
+                async fn get_auto_analysis(
+                    &self,
+                    structure: &str,
+                ) -> Result<Option<serde_json::Value>, StoreError> {
+                    monitor::get_auto_analysis(&self.pool, structure).await
+                }
+
+                async fn put_alert_rule(&self, r: &AlertRuleRecord) -> Result<Written, StoreError> {
+                    monitor::put_alert_rule(self, r).await
+                }
+
+                async fn get_alert_rule(
+                    &self,
+                    structure: &str,
+                    id: Uuid,
+                ) -> Result<Option<AlertRuleRecord>, StoreError> {
+                    monitor::get_alert_rule(&self.pool, structure, id).await
+                }
+
+                async fn list_alert_rules(
+                    &self,
+                    structure: &str,
+                ) -> Result<Vec<AlertRuleRecord>, StoreError> {
+                    monitor::list_alert_rules(&self.pool, structure).await
+                }
+
+                async fn delete_alert_rule(
+                    &self,
+                    structure: &str,
+                    id: Uuid,
+                ) -> Result<bool, StoreError> {
+                    monitor::delete_alert_rule(self, structure, id).await
+                }
+
+                async fn list_alert_states(
+                    &self,
+                    structure: &str,
+                ) -> Result<Vec<AlertState>, StoreError> {
+                    monitor::list_alert_states(&self.pool, structure).await
+                }
+
+                async fn list_alert_events(
+                    &self,
+                    structure: &str,
+                    q: &AlertEventQuery,
+                ) -> Result<Vec<AlertEvent>, StoreError> {
+                    monitor::list_alert_events(&self.pool, structure, q).await
+                }
+
+                async fn insert_subscription(&self, s: &Subscription) -> Result<(), StoreError> {
+                    monitor::insert_subscription(self, s).await
+                }
+
+                async fn get_subscription(
+                    &self,
+                    id: Uuid,
+                ) -> Result<Option<Subscription>, StoreError> {
+                    monitor::get_subscription(&self.pool, id).await
+                }
+
+                async fn list_subscriptions(
+                    &self,
+                    structure: Option<&str>,
+                ) -> Result<Vec<Subscription>, StoreError> {
+                    monitor::list_subscriptions(&self.pool, structure).await
+                }
+
+                async fn delete_subscription(&self, id: Uuid) -> Result<bool, StoreError> {
+                    monitor::delete_subscription(self, id).await
+                }
+
+                async fn list_deliveries(
+                    &self,
+                    subscription: Uuid,
+                    q: &DeliveryQuery,
+                ) -> Result<Vec<Delivery>, StoreError> {
+                    monitor::list_deliveries(&self.pool, subscription, q).await
+                }
+
+                async fn get_delivery(
+                    &self,
+                    subscription: Uuid,
+                    id: Uuid,
+                ) -> Result<Option<(Delivery, Vec<DeliveryAttempt>)>, StoreError> {
+                    monitor::get_delivery(&self.pool, subscription, id).await
+                }
+
+                async fn replay_delivery(
+                    &self,
+                    subscription: Uuid,
+                    id: Uuid,
+                    now: OffsetDateTime,
+                ) -> Result<Option<Delivery>, StoreError> {
+                    monitor::replay_delivery(self, subscription, id, now).await
+                }
+
+                async fn claim_dispatch(
+                    &self,
+                    worker: &str,
+                    now: OffsetDateTime,
+                    lease_until: OffsetDateTime,
+                    max: usize,
+                ) -> Result<Option<DispatchBatch>, StoreError> {
+                    monitor::claim_dispatch(self, worker, now, lease_until, max).await
+                }
+
+                async fn record_attempt(
+                    &self,
+                    worker: &str,
+                    attempt: &DeliveryAttempt,
+                    next: DeliveryNext,
+                ) -> Result<(), StoreError> {
+                    monitor::record_attempt(self, worker, attempt, next).await
+                }
+
+                async fn release_dispatch(
+                    &self,
+                    worker: &str,
+                    subscription: Uuid,
+                ) -> Result<(), StoreError> {
+                    monitor::release_dispatch(self, worker, subscription).await
                 }
             }
         };

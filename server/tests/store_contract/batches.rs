@@ -46,6 +46,7 @@ fn meta(key: Option<&str>) -> BatchMeta {
         media_type: "application/json".into(),
         idempotency_key: key.map(str::to_owned),
         body_sha256: "ab".repeat(32),
+        jobs: Vec::new(),
     }
 }
 

@@ -5,6 +5,7 @@
 mod analyses;
 mod batches;
 mod common;
+mod monitor;
 
 use std::str::FromStr;
 use std::time::Duration;

@@ -8,6 +8,7 @@
 mod analyses;
 mod batches;
 mod common;
+mod monitor;
 
 use std::str::FromStr;
 use std::time::Duration;

@@ -1,5 +1,6 @@
 //! The service's resources as they cross the API and the storage trait: structures,
-//! monitoring points, API keys, sensor batches and their readings. Lengths are stored in metres; the API converts at
+//! monitoring points, API keys, sensor batches and their readings, analyses, and (in
+//! submodules) jobs, alerts and webhooks. Lengths are stored in metres; the API converts at
 //! the edge with the structure's declared length unit.
 
 use serde::{Deserialize, Serialize};
@@ -8,6 +9,22 @@ use utoipa::ToSchema;
 use uuid::Uuid;
 
 use crate::units::LengthUnit;
+
+pub mod alerts;
+pub mod jobs;
+pub mod webhooks;
+
+pub use self::alerts::{
+    AlertEvent, AlertEventKind, AlertEventQuery, AlertRuleRecord, AlertState, Evaluation,
+    NewAlertEvent,
+};
+pub use self::jobs::{
+    Job, JobAttemptError, JobOrigin, JobOutcome, JobQuery, JobStatus, Lease, NewJob,
+};
+pub use self::webhooks::{
+    Delivery, DeliveryAttempt, DeliveryNext, DeliveryQuery, DeliveryStatus, DispatchBatch, Event,
+    EventType, NewEvent, Subscription,
+};
 
 /// Longest asset or point ID, characters.
 pub const MAX_ID_LEN: usize = 64;
