@@ -72,15 +72,33 @@ call hsls03-batch.json 201 POST /v1/structures/HSLS-03/batches \
     -H 'Content-Type: application/json' -H "Idempotency-Key: hsls03-2026-11" \
     --data-binary "@$here/hsls03/batch.json"
 
-echo "Analyses, stored with their inputs, parameters and results:"
-# analyse NAME STRUCTURE BODY: POST the analysis, then export its result in every format
-# that applies (GeoJSON only where the frame is East-North-Up and the result is spatial).
+echo "Analyses, run as jobs and stored with their inputs, parameters and results:"
+# wait_job NAME STRUCTURE JOB_ID: poll the job until it has ended (at most 60 s); its
+# last state is written to OUT/NAME.
+wait_job() {
+    local name="$1" sid="$2" job="$3" status i
+    for i in $(seq 1 300); do
+        curl -sS -o "$out/$name" -H "Authorization: Bearer $token" "$base/v1/structures/$sid/jobs/$job"
+        status=$(field "$out/$name" 'd["status"]')
+        case "$status" in succeeded|failed) return 0 ;; esac
+        sleep 0.2
+    done
+    echo "  job $job of $sid did not end within 60 s (status $status)" >&2
+    failures=$((failures + 1))
+    return 1
+}
+# analyse NAME STRUCTURE BODY FORMATS: queue the analysis (202 and a job), wait for the
+# job, then export the result in every format that applies (GeoJSON only where the
+# frame is East-North-Up and the result is spatial).
 analyse() {
     local name="$1" sid="$2" body="$3" formats="$4"
-    call "$name.json" 201 POST "/v1/structures/$sid/analyses" \
+    call "$name-job.json" 202 POST "/v1/structures/$sid/analyses" \
         -H 'Content-Type: application/json' --data-binary "@$body"
-    local id status
-    id=$(field "$out/$name.json" 'd["id"]')
+    local job id status
+    job=$(field "$out/$name-job.json" 'd["id"]')
+    wait_job "$name-job-done.json" "$sid" "$job" || return 0
+    id=$(field "$out/$name-job-done.json" 'd["analysis_id"]')
+    call "$name.json" 200 GET "/v1/structures/$sid/analyses/$id"
     status=$(field "$out/$name.json" 'd["status"]')
     if [ "$status" != succeeded ]; then
         echo "  $name: the analysis $status: $(field "$out/$name.json" 'd.get("error")')" >&2

@@ -11,11 +11,13 @@
 //! codes and licensed practice.
 #![forbid(unsafe_code)]
 
+pub mod alerts;
 pub mod analysis;
 pub mod api;
 pub mod cli;
 pub mod ingest;
 pub mod input;
+pub mod jobs;
 pub mod keys;
 pub mod model;
 pub mod output;

@@ -18,8 +18,12 @@ pub struct JobSettings {
     pub retry_base: Duration,
     /// Longest wait between attempts.
     pub retry_max: Duration,
-    /// How often an idle worker looks for jobs.
+    /// How often an idle worker looks for jobs (a job queued by this process wakes
+    /// its workers at once).
     pub poll: Duration,
+    /// Fault injection for tests only: each attempt waits this long after its claim
+    /// before it computes (0 = off), so that a test can stop a worker in the middle.
+    pub fault_pause: Duration,
 }
 
 impl Default for JobSettings {
@@ -31,6 +35,7 @@ impl Default for JobSettings {
             retry_base: Duration::from_secs(5),
             retry_max: Duration::from_secs(300),
             poll: Duration::from_millis(500),
+            fault_pause: Duration::ZERO,
         }
     }
 }

@@ -1,8 +1,8 @@
 //! Analyses run through the API, in process (`tower::ServiceExt::oneshot`) on SQLite
 //! and PostgreSQL: structures, points and readings go in through the real HTTP
 //! endpoints (`PUT /v1/structures/{id}`, `PUT …/points`, `POST …/batches`), then
-//! `POST /v1/structures/{id}/analyses` runs epoch and series analyses that are read
-//! back, listed and exported.
+//! `POST /v1/structures/{id}/analyses` queues epoch and series analyses as jobs that
+//! run (as `kinema serve`'s workers run them) and are read back, listed and exported.
 //!
 //! Outside references:
 //! - a homogeneous displacement field `u = t + G·x` has the constant small strain
@@ -16,6 +16,7 @@
 use axum::body::Body;
 use axum::http::{HeaderMap, Method, Request, StatusCode, header};
 use kinema_server::api::{AppState, Limits, app};
+use kinema_server::jobs::worker::run_once;
 use kinema_server::keys::new_key;
 use kinema_server::model::Scope;
 use kinema_server::store::{self, DynStore};
@@ -141,7 +142,33 @@ async fn post_batch(app: &axum::Router, token: &str, id: &str, readings: Vec<Val
     assert_eq!(s, StatusCode::CREATED, "{}", String::from_utf8_lossy(&b));
 }
 
-async fn analyse(app: &axum::Router, token: &str, id: &str, body: Value) -> (StatusCode, Value) {
+/// The app with its state, so that a test can run the queued jobs; derefs to the
+/// router.
+struct Svc {
+    router: axum::Router,
+    state: AppState,
+}
+
+impl std::ops::Deref for Svc {
+    type Target = axum::Router;
+    fn deref(&self) -> &axum::Router {
+        &self.router
+    }
+}
+
+/// Run every queued job (as the workers of `kinema serve` do).
+async fn drain(svc: &Svc) {
+    let settings = std::sync::Arc::new(svc.state.settings.jobs.clone());
+    while run_once(&svc.state, &settings, "test-worker")
+        .await
+        .expect("run a job")
+        .is_some()
+    {}
+}
+
+/// POST an analysis: a request error as it is answered, or — once it is queued (202,
+/// `Location` of the job) and the job has run — 202 with the stored analysis.
+async fn analyse(app: &Svc, token: &str, id: &str, body: Value) -> (StatusCode, Value) {
     let (s, h, b) = call(
         app,
         Method::POST,
@@ -151,20 +178,37 @@ async fn analyse(app: &axum::Router, token: &str, id: &str, body: Value) -> (Sta
     )
     .await;
     let v = json_of(&b);
-    if s == StatusCode::CREATED {
-        let loc = h
-            .get(header::LOCATION)
-            .and_then(|v| v.to_str().ok())
-            .expect("Location");
-        assert_eq!(
-            loc,
-            format!(
-                "/v1/structures/{id}/analyses/{}",
-                v["id"].as_str().expect("id")
-            )
-        );
+    if s != StatusCode::ACCEPTED {
+        return (s, v);
     }
-    (s, v)
+    let loc = h
+        .get(header::LOCATION)
+        .and_then(|v| v.to_str().ok())
+        .expect("Location")
+        .to_owned();
+    assert_eq!(
+        loc,
+        format!("/v1/structures/{id}/jobs/{}", v["id"].as_str().expect("id"))
+    );
+    assert_eq!(v["status"], "queued", "{v}");
+    drain(app).await;
+    let (s, _, b) = call(app, Method::GET, token, &loc, None).await;
+    assert_eq!(s, StatusCode::OK);
+    let job = json_of(&b);
+    let aid = job["analysis_id"].as_str().expect("the job stored an analysis");
+    let (s, _, b) = call(
+        app,
+        Method::GET,
+        token,
+        &format!("/v1/structures/{id}/analyses/{aid}"),
+        None,
+    )
+    .await;
+    assert_eq!(s, StatusCode::OK);
+    let a = json_of(&b);
+    // The job ends as its analysis did.
+    assert_eq!(job["status"], a["status"], "{job} {a}");
+    (StatusCode::ACCEPTED, a)
 }
 
 fn close(a: &Value, b: f64) -> bool {
@@ -232,7 +276,11 @@ async fn scenario(store: DynStore) {
     let (elsewhere, key) =
         new_key("other wall", Scope::Write, Some(vec!["LINE".into()])).expect("key");
     store.insert_key(&key).await.expect("key");
-    let app = app(AppState::new(store.clone(), Limits::default()));
+    let state = AppState::new(store.clone(), Limits::default());
+    let app = Svc {
+        router: app(state.clone()),
+        state,
+    };
 
     put_structure(
         &app,
@@ -263,7 +311,7 @@ async fn scenario(store: DynStore) {
         json!({"kind": "epoch", "epoch": epoch(30), "method": {"kind": "delaunay"}}),
     )
     .await;
-    assert_eq!(s, StatusCode::CREATED, "{a_ref}");
+    assert_eq!(s, StatusCode::ACCEPTED, "{a_ref}");
     assert_eq!(a_ref["kind"], "epoch");
     assert_eq!(a_ref["status"], "succeeded");
     assert_eq!(a_ref["inputs"]["points_used"], 9);
@@ -279,7 +327,7 @@ async fn scenario(store: DynStore) {
                "method": {"kind": "delaunay"}, "strain_unit": "microstrain"}),
     )
     .await;
-    assert_eq!(s, StatusCode::CREATED, "{a_base}");
+    assert_eq!(s, StatusCode::ACCEPTED, "{a_base}");
     assert_eq!(a_base["baseline_epoch"], epoch(10));
     assert_uniform(&a_base["result"], 20.0);
 
@@ -292,7 +340,7 @@ async fn scenario(store: DynStore) {
                "strain_unit": "strain"}),
     )
     .await;
-    assert_eq!(s, StatusCode::CREATED, "{a_net}");
+    assert_eq!(s, StatusCode::ACCEPTED, "{a_net}");
     assert_eq!(a_net["inputs"]["points_used"], 8);
     assert_eq!(a_net["inputs"]["left_out"][0]["point_id"], "P22");
     let net = &a_net["result"]["network"][0];
@@ -309,7 +357,7 @@ async fn scenario(store: DynStore) {
         ]},
     });
     let (s, a_ser) = analyse(&app, &writer, "W1", series_body.clone()).await;
-    assert_eq!(s, StatusCode::CREATED, "{a_ser}");
+    assert_eq!(s, StatusCode::ACCEPTED, "{a_ser}");
     assert_eq!(a_ser["kind"], "series");
     assert_eq!(a_ser["status"], "succeeded");
     assert_eq!(a_ser["method"], "groups");
@@ -368,7 +416,7 @@ async fn scenario(store: DynStore) {
     ranged["from"] = json!(epoch(25));
     ranged["baseline_epoch"] = json!(epoch(0));
     let (s, a_rng) = analyse(&app, &writer, "W1", ranged).await;
-    assert_eq!(s, StatusCode::CREATED, "{a_rng}");
+    assert_eq!(s, StatusCode::ACCEPTED, "{a_rng}");
     assert_eq!(a_rng["inputs"]["epochs_used"], 2);
     let r = a_rng["result"]["rates"]
         .as_array()
@@ -393,7 +441,7 @@ async fn scenario(store: DynStore) {
                "options": {"use_precision": true}}),
     )
     .await;
-    assert_eq!(s, StatusCode::CREATED, "{a_el}");
+    assert_eq!(s, StatusCode::ACCEPTED, "{a_el}");
     let r = a_el["result"]["rates"]
         .as_array()
         .expect("rates")
@@ -563,7 +611,8 @@ async fn scenario(store: DynStore) {
     assert_eq!(s, StatusCode::OK);
     assert!(same(&json_of(&b), &a_ser["result"]));
 
-    // Collinear points: the analysis is stored as failed, with the reason, 201.
+    // Collinear points: the analysis is stored as failed, with the reason, and the job
+    // fails with it.
     put_structure(&app, &writer, "LINE", json!({"kind": "local"})).await;
     let line: Vec<(String, [f64; 2])> = (0..4)
         .map(|i| (format!("L{i}"), [f64::from(i) * 5.0, f64::from(i) * 5.0]))
@@ -585,7 +634,7 @@ async fn scenario(store: DynStore) {
         json!({"kind": "epoch", "epoch": epoch(1), "method": {"kind": "delaunay"}}),
     )
     .await;
-    assert_eq!(s, StatusCode::CREATED, "{failed}");
+    assert_eq!(s, StatusCode::ACCEPTED, "{failed}");
     assert_eq!(failed["status"], "failed");
     assert!(
         failed["error"].as_str().is_some_and(|e| !e.is_empty()),

@@ -17,13 +17,12 @@ use super::auth::Caller;
 use super::extract::{ApiJson, ApiQuery};
 use super::page::{Page, PageQuery};
 use super::problem::{ApiError, Problem};
-use crate::analysis::epoch::{Displacement, EpochRequest, run_epoch};
-use crate::analysis::params::{FieldOptions, MethodSpec};
-use crate::analysis::series::{MAX_SERIES_EPOCHS, SeriesAnalysisRequest, SeriesEpoch, run_series};
-use crate::analysis::{AnalysisError, export};
-use crate::ingest::validate::parse_epoch;
-use crate::model::{Analysis, AnalysisKind, AnalysisQuery, AnalysisStatus, Frame, Reading, Scope};
-use crate::units::StrainUnit;
+use crate::analysis::export;
+use crate::jobs::request::{AnalysisInput, check};
+use crate::model::{
+    Analysis, AnalysisKind, AnalysisQuery, AnalysisStatus, Frame, Job, JobOrigin, NewJob, Scope,
+    now_utc,
+};
 
 /// Routes of this module.
 pub fn routes() -> OpenApiRouter<AppState> {
@@ -33,109 +32,7 @@ pub fn routes() -> OpenApiRouter<AppState> {
         .routes(routes!(get_result))
 }
 
-/// Body of `POST /v1/structures/{id}/analyses`: what to analyse, chosen by `kind`.
-#[derive(Debug, Clone, Deserialize, ToSchema)]
-#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
-pub enum AnalysisInput {
-    /// The strain field at one epoch, from the readings at it (displacements from the
-    /// reference coordinates) or from their difference to the readings at a baseline
-    /// epoch.
-    Epoch {
-        /// The epoch analysed: an epoch with readings, RFC 3339 (any offset; compared
-        /// in UTC to the microsecond).
-        epoch: String,
-        /// An earlier epoch with readings whose displacements are subtracted, RFC
-        /// 3339; absent = displacements from the reference coordinates.
-        #[serde(default)]
-        baseline_epoch: Option<String>,
-        /// The estimator (`delaunay`, `elements`, `groups`, `neighbourhood`,
-        /// `network`); lengths in it are in the structure's length unit.
-        method: MethodSpec,
-        /// Options of the estimator; absent members take their defaults.
-        #[serde(default)]
-        options: FieldOptions,
-        /// Unit of the strains in the result: `strain` or `microstrain` (default).
-        #[serde(default)]
-        strain_unit: StrainUnit,
-    },
-    /// The strain of fixed regions (elements or groups) followed through the epochs
-    /// in `[from, to]`: cumulative strain from the baseline epoch, increments between
-    /// consecutive epochs and rates (least-squares slope against time). No
-    /// temperature compensation: epoch temperatures are not stored.
-    Series {
-        /// First time of the range, RFC 3339, inclusive; absent = from the first epoch.
-        #[serde(default)]
-        from: Option<String>,
-        /// Last time of the range, RFC 3339, inclusive; absent = to the last epoch.
-        #[serde(default)]
-        to: Option<String>,
-        /// The baseline epoch, an epoch with readings, RFC 3339; its positions are the
-        /// reference geometry and cumulative strains are measured from it. Absent =
-        /// the first epoch of the range; one outside the range is added to it.
-        #[serde(default)]
-        baseline_epoch: Option<String>,
-        /// The regions: `elements` or `groups` (other estimators do not follow fixed
-        /// regions).
-        method: MethodSpec,
-        /// Options of the estimator; absent members take their defaults. `alpha` is
-        /// also the level of the test of each increment.
-        #[serde(default)]
-        options: FieldOptions,
-        /// Unit of the strains (and strain rates) in the result: `strain` or
-        /// `microstrain` (default).
-        #[serde(default)]
-        strain_unit: StrainUnit,
-    },
-}
-
-fn epoch_field(text: &str, pointer: &str) -> Result<OffsetDateTime, ApiError> {
-    parse_epoch(text).map_err(|m| ApiError::field(pointer, m))
-}
-
-fn displacements(readings: Vec<Reading>) -> Vec<Displacement> {
-    readings
-        .into_iter()
-        .map(|r| Displacement {
-            point_id: r.point_id,
-            u: r.u,
-            sigma: r.sigma,
-        })
-        .collect()
-}
-
-/// The readings at `epoch`, or 422 at `pointer` when it has none.
-async fn readings_of(
-    state: &AppState,
-    id: &str,
-    epoch: OffsetDateTime,
-    pointer: &str,
-) -> Result<Vec<Displacement>, ApiError> {
-    let r = state.store.readings_at(id, epoch).await?;
-    if r.is_empty() {
-        return Err(ApiError::field(
-            pointer,
-            format!(
-                "structure {id} has no readings at {}; see GET /v1/structures/{id}/epochs",
-                epoch
-                    .format(&time::format_description::well_known::Rfc3339)
-                    .unwrap_or_default()
-            ),
-        ));
-    }
-    Ok(displacements(r))
-}
-
-async fn compute<F>(f: F) -> Result<Analysis, ApiError>
-where
-    F: FnOnce() -> Result<Analysis, AnalysisError> + Send + 'static,
-{
-    tokio::task::spawn_blocking(f)
-        .await
-        .map_err(|e| ApiError::Internal(format!("analysis task: {e}")))?
-        .map_err(ApiError::from)
-}
-
-/// Run and store an analysis of the structure's stored readings.
+/// Queue an analysis of the structure's stored readings as a job; 202 with the job.
 ///
 /// - `kind: epoch`: the strain field at `epoch` from its readings (displacements
 ///   from the reference coordinates), or from the change since `baseline_epoch`
@@ -147,12 +44,14 @@ where
 ///   year), `excluded` and `rejected`. The position of a point at an epoch is its
 ///   reference coordinates plus the reading. No temperature compensation.
 ///
-/// Request errors (unknown epoch, baseline not before the epoch, bad method or
-/// options, a method a series cannot follow) are 422 with a JSON pointer and nothing
-/// is stored. When the parameters are valid but the data cannot be computed on
-/// (e.g. all points collinear, every element screened out), the analysis is stored
-/// with `status: failed` and its `error`, and also answered 201: it is part of the
-/// structure's history.
+/// Requests that cannot run (an epoch without readings, a baseline not before the
+/// epoch, a bad method or options, a method a series cannot follow) are 422 with a
+/// JSON pointer and nothing is queued. The job then runs in a worker: follow
+/// `Location` (`GET /v1/structures/{id}/jobs/{job_id}`) until its `status` is
+/// `succeeded` or `failed`; its `analysis_id` names the stored analysis. When the data
+/// cannot be computed on (all points collinear, every element screened out, options
+/// that do not fit the data), the analysis is stored with `status: failed` and its
+/// `error`, and the job fails: it is part of the structure's history.
 ///
 /// Results are kinematic estimates from measured displacements, not a structural
 /// assessment; defer to local codes and licensed practice.
@@ -161,8 +60,8 @@ where
     request_body = AnalysisInput,
     security(("api_key" = [])),
     responses(
-        (status = 201, description = "Stored, succeeded or failed (see `status` and `error`)", body = Analysis,
-            headers(("Location" = String, description = "URL of the analysis"))),
+        (status = 202, description = "Queued: the job", body = Job,
+            headers(("Location" = String, description = "URL of the job"))),
         (status = 400, description = "Not JSON (JSON has no NaN or Infinity)", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No valid API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The key lacks the write scope", body = Problem, content_type = "application/problem+json"),
@@ -178,135 +77,23 @@ pub async fn post_analysis(
     ApiJson(body): ApiJson<AnalysisInput>,
 ) -> Result<Response, ApiError> {
     let s = caller.structure(&state, Scope::Write, &id).await?;
-    let started = std::time::Instant::now();
-    let analysis = match body {
-        AnalysisInput::Epoch {
-            epoch,
-            baseline_epoch,
-            method,
-            options,
-            strain_unit,
-        } => {
-            let epoch = epoch_field(&epoch, "/epoch")?;
-            let baseline_epoch = baseline_epoch
-                .map(|b| epoch_field(&b, "/baseline_epoch"))
-                .transpose()?;
-            if let Some(b) = baseline_epoch
-                && b >= epoch
-            {
-                return Err(ApiError::field(
-                    "/baseline_epoch",
-                    "the baseline epoch must be earlier than the epoch",
-                ));
-            }
-            let errs = crate::analysis::params::validate(&method, &options);
-            if !errs.is_empty() {
-                return Err(ApiError::fields(errs));
-            }
-            let at = readings_of(&state, &id, epoch, "/epoch").await?;
-            let base = match baseline_epoch {
-                Some(b) => Some(readings_of(&state, &id, b, "/baseline_epoch").await?),
-                None => None,
-            };
-            let points = state.store.list_points(&id).await?;
-            let req = EpochRequest {
-                epoch,
-                baseline_epoch,
-                method,
-                options,
-                strain_unit,
-            };
-            compute(move || run_epoch(&s, &points, &at, base.as_deref(), &req)).await?
-        }
-        AnalysisInput::Series {
-            from,
-            to,
-            baseline_epoch,
-            method,
-            options,
-            strain_unit,
-        } => {
-            let from = from.map(|t| epoch_field(&t, "/from")).transpose()?;
-            let to = to.map(|t| epoch_field(&t, "/to")).transpose()?;
-            let baseline = baseline_epoch
-                .map(|b| epoch_field(&b, "/baseline_epoch"))
-                .transpose()?;
-            if let (Some(a), Some(b)) = (from, to)
-                && a > b
-            {
-                return Err(ApiError::field(
-                    "/to",
-                    "`to` must not be earlier than `from`",
-                ));
-            }
-            let points = state.store.list_points(&id).await?;
-            let errs = crate::analysis::series::validate(&method, &options, &points);
-            if !errs.is_empty() {
-                return Err(ApiError::fields(errs));
-            }
-            let mut times: Vec<OffsetDateTime> = state
-                .store
-                .list_epochs(&id, from, to)
-                .await?
-                .into_iter()
-                .map(|e| e.epoch)
-                .collect();
-            let baseline = match baseline {
-                Some(b) => {
-                    if !times.contains(&b) {
-                        // Checked to exist below; outside the range it is added.
-                        times.push(b);
-                        times.sort_unstable();
-                    }
-                    b
-                }
-                None => *times.first().ok_or_else(|| {
-                    ApiError::field(
-                        "/from",
-                        "the structure has no epoch with readings in the range",
-                    )
-                })?,
-            };
-            if times.len() < 2 || times.len() > MAX_SERIES_EPOCHS {
-                return Err(ApiError::field(
-                    "/from",
-                    format!(
-                        "a series needs 2 to {MAX_SERIES_EPOCHS} epochs with readings; the range (with the baseline) has {}",
-                        times.len()
-                    ),
-                ));
-            }
-            let mut epochs = Vec::with_capacity(times.len());
-            for t in times {
-                let pointer = if t == baseline {
-                    "/baseline_epoch"
-                } else {
-                    "/from"
-                };
-                epochs.push(SeriesEpoch {
-                    epoch: t,
-                    readings: readings_of(&state, &id, t, pointer).await?,
-                });
-            }
-            let req = SeriesAnalysisRequest {
-                from,
-                to,
-                baseline_epoch: baseline,
-                method,
-                options,
-                strain_unit,
-            };
-            compute(move || run_series(&s, &points, &epochs, &req)).await?
-        }
-    };
-    state.store.insert_analysis(&analysis).await?;
-    state.metrics.analysis(
-        analysis.kind.as_str(),
-        analysis.status.as_str(),
-        started.elapsed().as_secs_f64(),
-    );
-    let mut resp = (axum::http::StatusCode::CREATED, axum::Json(&analysis)).into_response();
-    if let Ok(v) = HeaderValue::from_str(&format!("/v1/structures/{id}/analyses/{}", analysis.id)) {
+    check(&state.store, &s, &body).await?;
+    let request = serde_json::to_value(&body).map_err(|e| ApiError::Internal(e.to_string()))?;
+    let job = state
+        .store
+        .enqueue_job(&NewJob {
+            id: Uuid::new_v4(),
+            structure_id: id.clone(),
+            origin: JobOrigin::Request,
+            batch_id: None,
+            request,
+            max_attempts: state.settings.jobs.max_attempts,
+            created_at: now_utc(),
+        })
+        .await?;
+    state.wake.notify_waiters();
+    let mut resp = (axum::http::StatusCode::ACCEPTED, axum::Json(&job)).into_response();
+    if let Ok(v) = HeaderValue::from_str(&format!("/v1/structures/{id}/jobs/{}", job.id)) {
         resp.headers_mut().insert(header::LOCATION, v);
     }
     Ok(resp)

@@ -27,8 +27,11 @@ use super::problem::{ApiError, FieldError, Problem};
 use crate::ingest::body::BodyReader;
 use crate::ingest::validate::parse_epoch;
 use crate::ingest::{self, Context, IngestError, Sink};
+use crate::jobs::request::{AutoAnalysis, AutoBaseline};
 use crate::keys::hex;
-use crate::model::{Batch, IdempotentBatch, Scope, from_unix_micros, now_utc, to_unix_micros};
+use crate::model::{
+    Batch, IdempotentBatch, JobOrigin, NewJob, Scope, from_unix_micros, now_utc, to_unix_micros,
+};
 use crate::store::BatchMeta;
 use crate::units::LengthUnit;
 
@@ -243,6 +246,57 @@ fn created(structure: &str, id: Uuid, body: &serde_json::Value, replayed: bool) 
     resp
 }
 
+/// The structure's automatic analysis, if it has one.
+async fn auto_analysis(state: &AppState, id: &str) -> Result<Option<AutoAnalysis>, ApiError> {
+    state
+        .store
+        .get_auto_analysis(id)
+        .await?
+        .map(serde_json::from_value)
+        .transpose()
+        .map_err(|e| ApiError::Internal(format!("stored automatic analysis: {e}")))
+}
+
+/// The jobs the automatic analysis queues for a batch with `epochs`.
+async fn auto_jobs(
+    state: &AppState,
+    id: &str,
+    batch_id: Uuid,
+    auto: &AutoAnalysis,
+    epochs: &std::collections::BTreeSet<OffsetDateTime>,
+) -> Result<Vec<NewJob>, ApiError> {
+    let batch: Vec<_> = epochs.iter().copied().collect();
+    let stored: Vec<_> = if auto.baseline == AutoBaseline::Reference {
+        Vec::new()
+    } else {
+        // The epochs stored before this batch (its own are not visible yet), up to its
+        // last: what a baseline of `first_epoch` or `previous_epoch` is chosen from.
+        state
+            .store
+            .list_epochs(id, None, batch.last().copied())
+            .await?
+            .into_iter()
+            .map(|e| e.epoch)
+            .collect()
+    };
+    let created_at = now_utc();
+    auto.plan(&batch, &stored)
+        .into_iter()
+        .map(|input| {
+            Ok(NewJob {
+                id: Uuid::new_v4(),
+                structure_id: id.to_owned(),
+                origin: JobOrigin::Batch,
+                batch_id: Some(batch_id),
+                request: serde_json::to_value(&input)
+                    .map_err(|e| ApiError::Internal(e.to_string()))?,
+                max_attempts: state.settings.jobs.max_attempts,
+                created_at,
+            })
+        })
+        .collect()
+}
+
 /// Store a sensor batch, all or nothing.
 ///
 /// The body is streamed: JSON (`application/json`, shape `BatchInput`) or CSV
@@ -295,6 +349,7 @@ pub async fn post_batch(
     {
         return replay(&id, k, prev, media, from_query, body, limit).await;
     }
+    let auto = auto_analysis(&state, &id).await?;
     let received_at = now_utc();
     let mut writer = state.store.begin_batch(&id, key.as_deref()).await?;
     if let Some(k) = &key
@@ -320,7 +375,11 @@ pub async fn post_batch(
         }
     });
     let mut write_error = None;
+    let mut epochs = std::collections::BTreeSet::new();
     while let Some(chunk) = rx.recv().await {
+        if auto.is_some() {
+            epochs.extend(chunk.iter().map(|r| r.epoch));
+        }
         if let Err(e) = writer.write(&chunk).await {
             write_error = Some(e);
             break;
@@ -335,15 +394,23 @@ pub async fn post_batch(
         (Err(e), _) => return Err(e.into()),
         (Ok(o), None) => o,
     };
+    let jobs = match &auto {
+        Some(a) => auto_jobs(&state, &id, writer.batch_id(), a, &epochs).await?,
+        None => Vec::new(),
+    };
+    let queued = !jobs.is_empty();
     let batch = writer
         .commit(BatchMeta {
             received_at,
             media_type: media.label().to_owned(),
             idempotency_key: key,
             body_sha256: request_fingerprint(media, from_query, &outcome.body_sha256),
-            jobs: Vec::new(),
+            jobs,
         })
         .await?;
+    if queued {
+        state.wake.notify_waiters();
+    }
     state.metrics.batch_ingested(batch.readings);
     let body = serde_json::to_value(&batch).map_err(|e| ApiError::Internal(e.to_string()))?;
     Ok(created(&id, batch.id, &body, false))

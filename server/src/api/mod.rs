@@ -8,10 +8,12 @@
 
 pub mod analyses;
 pub mod auth;
+pub mod auto_analysis;
 pub mod batches;
 pub mod compute;
 pub mod extract;
 pub mod health;
+pub mod jobs;
 pub mod keys;
 pub mod metrics;
 pub mod page;
@@ -81,6 +83,8 @@ pub struct AppState {
     pub metrics: Arc<metrics::Metrics>,
     /// Settings of jobs and webhooks.
     pub settings: Arc<Settings>,
+    /// Wakes this process's job workers when a job is queued.
+    pub wake: Arc<tokio::sync::Notify>,
 }
 
 impl AppState {
@@ -96,6 +100,7 @@ impl AppState {
             limits: Arc::new(limits),
             metrics: Arc::new(metrics::Metrics::default()),
             settings: Arc::new(settings),
+            wake: Arc::new(tokio::sync::Notify::new()),
         }
     }
 }
@@ -117,7 +122,7 @@ const DESCRIPTION: &str = include_str!("description.md");
         (name = "readings", description = "Sensor batches (streamed, all or nothing, idempotent with Idempotency-Key), their epochs and readings"),
         (name = "keys", description = "API keys (an unrestricted admin key only)"),
         (name = "compute", description = "Stateless strain computations; nothing is stored"),
-        (name = "analyses", description = "Analyses of a structure's readings, their history and exports"),
+        (name = "analyses", description = "Analyses of a structure's readings (run as jobs, queued by a request or automatically by an arriving batch), their history and exports"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -151,6 +156,8 @@ fn api_routes() -> OpenApiRouter<AppState> {
         .merge(keys::routes())
         .merge(compute::routes())
         .merge(analyses::routes())
+        .merge(jobs::routes())
+        .merge(auto_analysis::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).

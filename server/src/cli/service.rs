@@ -8,8 +8,11 @@ use clap::{Args, Subcommand, ValueEnum};
 use thiserror::Error;
 
 use crate::api::{self, AppState, Limits};
+use tokio_util::sync::CancellationToken;
+
 use crate::keys;
 use crate::model::{Scope, id_problem};
+use crate::settings::{JobSettings, Settings};
 use crate::store::{self, DynStore, StoreError, redact_url};
 
 /// Default database: an SQLite file in the working directory.
@@ -96,6 +99,35 @@ pub struct ServeArgs {
     /// Requests in progress at once; more are answered with 503.
     #[arg(long, env = "KINEMA_MAX_CONCURRENCY", default_value_t = Limits::default().max_concurrency)]
     pub max_concurrency: usize,
+    /// Analysis jobs this process runs at once (0: this process only serves the API and
+    /// leaves the jobs to other processes on the same database).
+    #[arg(long, env = "KINEMA_JOB_WORKERS", default_value_t = JobSettings::default().workers)]
+    pub job_workers: usize,
+    /// Milliseconds a worker's claim on a job lasts without renewal (renewed every
+    /// third); a job whose worker died runs again elsewhere once it has expired.
+    #[arg(long, env = "KINEMA_JOB_LEASE_MS", default_value_t = millis(JobSettings::default().lease))]
+    pub job_lease_ms: u64,
+    /// Attempts a job gets before it fails.
+    #[arg(long, env = "KINEMA_JOB_MAX_ATTEMPTS", default_value_t = JobSettings::default().max_attempts)]
+    pub job_max_attempts: u32,
+    /// Milliseconds to wait after a job's first failed attempt; doubled after each
+    /// further one, with jitter.
+    #[arg(long, env = "KINEMA_JOB_RETRY_BASE_MS", default_value_t = millis(JobSettings::default().retry_base))]
+    pub job_retry_base_ms: u64,
+    /// Longest wait between attempts of a job, milliseconds.
+    #[arg(long, env = "KINEMA_JOB_RETRY_MAX_MS", default_value_t = millis(JobSettings::default().retry_max))]
+    pub job_retry_max_ms: u64,
+    /// Milliseconds between looks for jobs by an idle worker.
+    #[arg(long, env = "KINEMA_JOB_POLL_MS", default_value_t = millis(JobSettings::default().poll))]
+    pub job_poll_ms: u64,
+    /// For tests only: every job attempt waits this many milliseconds after its claim,
+    /// so that a test can stop a worker in the middle of a job (0 = off).
+    #[arg(long, env = "KINEMA_JOB_FAULT_PAUSE_MS", default_value_t = 0, hide_short_help = true)]
+    pub job_fault_pause_ms: u64,
+}
+
+fn millis(d: Duration) -> u64 {
+    u64::try_from(d.as_millis()).unwrap_or(u64::MAX)
 }
 
 impl ServeArgs {
@@ -123,6 +155,33 @@ impl ServeArgs {
             max_concurrency: self.max_concurrency,
         })
     }
+
+    /// The settings of the monitoring loop these flags set.
+    pub fn settings(&self) -> Result<Settings, ServiceError> {
+        let positive = |name: &str, v: u64| {
+            if v == 0 {
+                Err(ServiceError::Usage(format!("--{name} must be at least 1")))
+            } else {
+                Ok(())
+            }
+        };
+        positive("job-lease-ms", self.job_lease_ms)?;
+        positive("job-max-attempts", u64::from(self.job_max_attempts))?;
+        positive("job-retry-base-ms", self.job_retry_base_ms)?;
+        positive("job-retry-max-ms", self.job_retry_max_ms)?;
+        positive("job-poll-ms", self.job_poll_ms)?;
+        Ok(Settings {
+            jobs: JobSettings {
+                workers: self.job_workers,
+                lease: Duration::from_millis(self.job_lease_ms),
+                max_attempts: self.job_max_attempts,
+                retry_base: Duration::from_millis(self.job_retry_base_ms),
+                retry_max: Duration::from_millis(self.job_retry_max_ms),
+                poll: Duration::from_millis(self.job_poll_ms),
+                fault_pause: Duration::from_millis(self.job_fault_pause_ms),
+            },
+        })
+    }
 }
 
 /// Set up tracing: `KINEMA_LOG` (or `RUST_LOG`) filters, default `info`.
@@ -147,6 +206,7 @@ pub fn init_tracing(format: LogFormat) {
 pub async fn serve(args: &ServeArgs) -> Result<(), ServiceError> {
     init_tracing(args.log_format);
     let limits = args.limits()?;
+    let settings = args.settings()?;
     let store = args.db.open_migrated().await?;
     let listener = tokio::net::TcpListener::bind(args.listen).await?;
     let addr = listener.local_addr()?;
@@ -158,10 +218,22 @@ pub async fn serve(args: &ServeArgs) -> Result<(), ServiceError> {
     );
     // The one line on stdout: where to find the server (scripts and tests read it).
     println!("listening on http://{addr}");
-    let app = api::app(AppState::new(store, limits));
-    axum::serve(listener, app)
+    let state = AppState::with_settings(store, limits, settings);
+    let stop = CancellationToken::new();
+    let workers = crate::jobs::worker::spawn(&state, &stop);
+    tracing::info!(workers = workers.len(), "job workers started");
+    let app = api::app(state);
+    let served = axum::serve(listener, app)
         .with_graceful_shutdown(shutdown_signal())
-        .await?;
+        .await;
+    // Workers finish the job in hand (bounded: a lease that is not renewed expires and
+    // another process takes the job over).
+    stop.cancel();
+    let wait = futures_util::future::join_all(workers);
+    if tokio::time::timeout(Duration::from_secs(30), wait).await.is_err() {
+        tracing::warn!("job workers did not stop within 30 s; their jobs will be claimed again");
+    }
+    served?;
     tracing::info!("kinema stopped");
     Ok(())
 }

@@ -13,6 +13,7 @@ use axum::http::{HeaderMap, Method, Request, StatusCode, header};
 use kinema_server::api::{self, AppState, Limits};
 use kinema_server::keys;
 use kinema_server::model::Scope;
+use kinema_server::settings::Settings;
 use kinema_server::store::{self, DynStore};
 use kinema_tests::db::{PgSchema, sqlite_file};
 use tower::ServiceExt;
@@ -55,6 +56,8 @@ pub struct App {
     pub router: Router,
     /// The store behind it.
     pub store: DynStore,
+    /// The state the router runs with (for [`App::drain`]).
+    pub state: AppState,
     _guard: Guard,
 }
 
@@ -135,12 +138,41 @@ impl App {
         };
         let store = store::open(&url).await.expect("open the store");
         store.migrate().await.expect("migrate");
-        let router = api::app(AppState::new(store.clone(), limits));
+        Self::with_settings(store, limits, Settings::default(), guard)
+    }
+
+    /// The app on backend `b` with default limits and `settings`.
+    pub async fn start_with(b: Backend, settings: Settings) -> Self {
+        let mut app = Self::start(b, Limits::default()).await;
+        app.state = AppState::with_settings(app.store.clone(), Limits::default(), settings);
+        app.router = api::app(app.state.clone());
+        app
+    }
+
+    fn with_settings(store: DynStore, limits: Limits, settings: Settings, guard: Guard) -> Self {
+        let state = AppState::with_settings(store.clone(), limits, settings);
+        let router = api::app(state.clone());
         Self {
             router,
             store,
+            state,
             _guard: guard,
         }
+    }
+
+    /// Run every claimable job to its end, as the workers of `kinema serve` do; returns
+    /// how many attempts ran.
+    pub async fn drain(&self) -> usize {
+        let settings = std::sync::Arc::new(self.state.settings.jobs.clone());
+        let mut n = 0;
+        while kinema_server::jobs::worker::run_once(&self.state, &settings, "test-worker")
+            .await
+            .expect("run a job")
+            .is_some()
+        {
+            n += 1;
+        }
+        n
     }
 
     /// A new API key; returns its token.
