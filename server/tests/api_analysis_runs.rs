@@ -195,7 +195,9 @@ async fn analyse(app: &Svc, token: &str, id: &str, body: Value) -> (StatusCode, 
     let (s, _, b) = call(app, Method::GET, token, &loc, None).await;
     assert_eq!(s, StatusCode::OK);
     let job = json_of(&b);
-    let aid = job["analysis_id"].as_str().expect("the job stored an analysis");
+    let aid = job["analysis_id"]
+        .as_str()
+        .expect("the job stored an analysis");
     let (s, _, b) = call(
         app,
         Method::GET,

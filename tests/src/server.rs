@@ -354,6 +354,20 @@ impl Server {
         kill(Pid::from_raw(pid), Signal::SIGTERM).expect("send SIGTERM");
     }
 
+    /// The process ID.
+    pub fn pid(&self) -> u32 {
+        self.child.id()
+    }
+
+    /// Kill the process at once (SIGKILL: no shutdown, no cleanup, as when a machine
+    /// dies) and wait for it.
+    pub fn kill(&mut self) {
+        let _ = self.child.kill();
+        if let Ok(status) = self.child.wait() {
+            self.exited = Some(status);
+        }
+    }
+
     /// Whether the process is still running.
     pub fn running(&mut self) -> bool {
         if self.exited.is_some() {

@@ -70,11 +70,10 @@ pub async fn get_auto_analysis(
     Path(id): Path<String>,
 ) -> Result<axum::Json<AutoAnalysis>, ApiError> {
     caller.structure(&state, Scope::Read, &id).await?;
-    let v = state
-        .store
-        .get_auto_analysis(&id)
-        .await?
-        .ok_or_else(|| ApiError::NotFound(format!("structure {id} has no automatic analysis")))?;
+    let v =
+        state.store.get_auto_analysis(&id).await?.ok_or_else(|| {
+            ApiError::NotFound(format!("structure {id} has no automatic analysis"))
+        })?;
     serde_json::from_value(v)
         .map(axum::Json)
         .map_err(|e| ApiError::Internal(format!("stored automatic analysis: {e}")))

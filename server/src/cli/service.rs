@@ -122,7 +122,12 @@ pub struct ServeArgs {
     pub job_poll_ms: u64,
     /// For tests only: every job attempt waits this many milliseconds after its claim,
     /// so that a test can stop a worker in the middle of a job (0 = off).
-    #[arg(long, env = "KINEMA_JOB_FAULT_PAUSE_MS", default_value_t = 0, hide_short_help = true)]
+    #[arg(
+        long,
+        env = "KINEMA_JOB_FAULT_PAUSE_MS",
+        default_value_t = 0,
+        hide_short_help = true
+    )]
     pub job_fault_pause_ms: u64,
 }
 
@@ -230,7 +235,10 @@ pub async fn serve(args: &ServeArgs) -> Result<(), ServiceError> {
     // another process takes the job over).
     stop.cancel();
     let wait = futures_util::future::join_all(workers);
-    if tokio::time::timeout(Duration::from_secs(30), wait).await.is_err() {
+    if tokio::time::timeout(Duration::from_secs(30), wait)
+        .await
+        .is_err()
+    {
         tracing::warn!("job workers did not stop within 30 s; their jobs will be claimed again");
     }
     served?;

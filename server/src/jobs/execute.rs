@@ -106,7 +106,14 @@ pub async fn execute(
         .ok_or_else(|| ExecError::Gone(structure_id.to_owned()))?;
     let times = match input.times() {
         Ok(t) => t,
-        Err(e) => return Ok(failed(&s, input, None, format!("{}: {}", e.pointer, e.detail))),
+        Err(e) => {
+            return Ok(failed(
+                &s,
+                input,
+                None,
+                format!("{}: {}", e.pointer, e.detail),
+            ));
+        }
     };
     let points = store.list_points(structure_id).await?;
     let outcome = match (input, times) {
@@ -190,7 +197,11 @@ async fn series_epochs(
         }
         None => match times.first() {
             Some(t) => *t,
-            None => return Ok(Err("the structure has no epoch with readings in the range".into())),
+            None => {
+                return Ok(Err(
+                    "the structure has no epoch with readings in the range".into()
+                ));
+            }
         },
     };
     if times.len() < 2 || times.len() > MAX_SERIES_EPOCHS {

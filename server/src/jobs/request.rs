@@ -225,7 +225,9 @@ pub async fn check(store: &DynStore, s: &Structure, input: &AnalysisInput) -> Re
             }
             Ok(())
         }
-        _ => Err(ApiError::Internal("times of another kind of analysis".into())),
+        _ => Err(ApiError::Internal(
+            "times of another kind of analysis".into(),
+        )),
     }
 }
 
@@ -370,9 +372,7 @@ mod tests {
     #[test]
     fn plan_keeps_the_latest_epochs_of_a_long_batch() {
         let t0 = datetime!(2026-01-01 00:00 UTC);
-        let batch: Vec<OffsetDateTime> = (0..150)
-            .map(|h| t0 + time::Duration::hours(h))
-            .collect();
+        let batch: Vec<OffsetDateTime> = (0..150).map(|h| t0 + time::Duration::hours(h)).collect();
         let plan = auto(AutoBaseline::Reference).plan(&batch, &[]);
         assert_eq!(plan.len(), MAX_AUTO_JOBS_PER_BATCH);
         assert_eq!(baselines(&plan)[0].0, rfc(t0 + time::Duration::hours(50)));
@@ -387,7 +387,10 @@ mod tests {
             options: FieldOptions::default(),
             strain_unit: StrainUnit::Microstrain,
         };
-        assert_eq!(bad.times().expect_err("late baseline").pointer, "/baseline_epoch");
+        assert_eq!(
+            bad.times().expect_err("late baseline").pointer,
+            "/baseline_epoch"
+        );
         let bad = AnalysisInput::Series {
             from: Some("2026-03-01T00:00:00Z".into()),
             to: Some("2026-02-01T00:00:00Z".into()),

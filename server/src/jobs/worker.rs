@@ -157,7 +157,12 @@ pub async fn run_once(
 /// Run jobs as `worker` until `shutdown`: claim and run while there are claimable
 /// jobs, then wait for [`JobSettings::poll`] or a wake-up from this process
 /// ([`AppState::wake`]).
-pub async fn run(state: AppState, settings: Arc<JobSettings>, worker: String, shutdown: CancellationToken) {
+pub async fn run(
+    state: AppState,
+    settings: Arc<JobSettings>,
+    worker: String,
+    shutdown: CancellationToken,
+) {
     loop {
         if shutdown.is_cancelled() {
             return;
@@ -213,7 +218,10 @@ mod tests {
             let full = (base * 2u32.pow(attempt - 1)).min(max);
             for _ in 0..50 {
                 let d = retry_delay(attempt, base, max);
-                assert!(d >= full / 2 && d <= full, "attempt {attempt}: {d:?} vs {full:?}");
+                assert!(
+                    d >= full / 2 && d <= full,
+                    "attempt {attempt}: {d:?} vs {full:?}"
+                );
             }
         }
         // Huge attempt numbers do not overflow.
