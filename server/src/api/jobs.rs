@@ -52,10 +52,9 @@ pub struct JobPage {
     security(("api_key" = [])),
     responses(
         (status = 200, description = "A page of jobs", body = JobPage),
-        (status = 400, description = "An unknown status", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No valid API key", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such structure (or outside the key's list)", body = Problem, content_type = "application/problem+json"),
-        (status = 422, description = "Bad cursor or limit", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "Bad status, cursor or limit", body = Problem, content_type = "application/problem+json"),
     ))]
 pub async fn list_jobs(
     State(state): State<AppState>,
