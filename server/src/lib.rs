@@ -11,6 +11,7 @@
 //! codes and licensed practice.
 #![forbid(unsafe_code)]
 
+pub mod alerts;
 pub mod analysis;
 pub mod api;
 pub mod cli;

@@ -6,6 +6,7 @@
 //! response. Every error is an [`problem::ApiError`], mapped to problem details in one
 //! place.
 
+pub mod alerts;
 pub mod analyses;
 pub mod auth;
 pub mod batches;
@@ -118,6 +119,7 @@ const DESCRIPTION: &str = include_str!("description.md");
         (name = "keys", description = "API keys (an unrestricted admin key only)"),
         (name = "compute", description = "Stateless strain computations; nothing is stored"),
         (name = "analyses", description = "Analyses of a structure's readings, their history and exports"),
+        (name = "alerts", description = "Alert rules (the user's thresholds; Kinema ships none), the alert state of each region, the alert event log, and reference strains for information"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -151,6 +153,7 @@ fn api_routes() -> OpenApiRouter<AppState> {
         .merge(keys::routes())
         .merge(compute::routes())
         .merge(analyses::routes())
+        .merge(alerts::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).
