@@ -6,6 +6,7 @@
 //! response. Every error is an [`problem::ApiError`], mapped to problem details in one
 //! place.
 
+pub mod alerts;
 pub mod analyses;
 pub mod auth;
 pub mod auto_analysis;
@@ -123,6 +124,7 @@ const DESCRIPTION: &str = include_str!("description.md");
         (name = "keys", description = "API keys (an unrestricted admin key only)"),
         (name = "compute", description = "Stateless strain computations; nothing is stored"),
         (name = "analyses", description = "Analyses of a structure's readings (run as jobs, queued by a request or automatically by an arriving batch), their history and exports"),
+        (name = "alerts", description = "Alert rules (the user's thresholds; Kinema ships none), the alert state of each region, the alert event log, and reference strains for information"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -158,6 +160,7 @@ fn api_routes() -> OpenApiRouter<AppState> {
         .merge(analyses::routes())
         .merge(jobs::routes())
         .merge(auto_analysis::routes())
+        .merge(alerts::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).
