@@ -23,3 +23,4 @@ pub mod pipeline;
 pub mod settings;
 pub mod store;
 pub mod units;
+pub mod webhooks;

@@ -40,4 +40,6 @@ impl Default for JobSettings {
 pub struct Settings {
     /// Analysis jobs.
     pub jobs: JobSettings,
+    /// Webhook delivery.
+    pub webhooks: crate::webhooks::WebhookSettings,
 }

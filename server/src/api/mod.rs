@@ -17,6 +17,7 @@ pub mod metrics;
 pub mod page;
 pub mod problem;
 pub mod structures;
+pub mod webhooks;
 
 use std::sync::Arc;
 use std::time::Duration;
@@ -118,6 +119,7 @@ const DESCRIPTION: &str = include_str!("description.md");
         (name = "keys", description = "API keys (an unrestricted admin key only)"),
         (name = "compute", description = "Stateless strain computations; nothing is stored"),
         (name = "analyses", description = "Analyses of a structure's readings, their history and exports"),
+        (name = "webhooks", description = "Webhook subscriptions (admin keys), signed event deliveries and their log"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -151,6 +153,7 @@ fn api_routes() -> OpenApiRouter<AppState> {
         .merge(keys::routes())
         .merge(compute::routes())
         .merge(analyses::routes())
+        .merge(webhooks::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).
