@@ -10,6 +10,7 @@
 //! - SQL binds every value (never formats one in).
 
 pub mod error;
+mod monitor_rows;
 mod monitor_sql;
 pub mod postgres;
 mod rows;

@@ -683,7 +683,12 @@ macro_rules! analyses_sql {
             AnalysisRow, DbTime, analysis_columns, analysis_list_columns, check_analysis,
         };
 
-        pub(super) async fn insert_analysis(pool: &$Pool, a: &Analysis) -> Result<(), StoreError> {
+        /// Store analysis `a` through `ex` (the pool, or an open transaction such as
+        /// `complete_job`'s).
+        pub(super) async fn insert_analysis<'e, E>(ex: E, a: &Analysis) -> Result<(), StoreError>
+        where
+            E: sqlx::Executor<'e, Database = $Db>,
+        {
             check_analysis(a)?;
             let done = sqlx::query(
                 "INSERT INTO analyses (id, structure_key, kind, status, method, epoch, baseline_epoch, \
@@ -708,7 +713,7 @@ macro_rules! analyses_sql {
             .bind(<$Time as DbTime>::from_time(a.created_at))
             .bind(i64::try_from(a.duration_ms).unwrap_or(i64::MAX))
             .bind(&a.structure_id)
-            .execute(pool)
+            .execute(ex)
             .await
             .map_err(|e| {
                 let e = StoreError::from(e);

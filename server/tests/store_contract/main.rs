@@ -4,10 +4,13 @@
 //! Each module holds the cases of one part of the [`Store`] trait and lists them once
 //! in [`contract!`], which makes one test per case and backend.
 
+mod alerts;
 mod analyses;
 mod batches;
+mod jobs;
 mod keys;
 mod structures;
+mod webhooks;
 
 use kinema_server::store::{self, DynStore};
 use kinema_tests::db::{PgSchema, sqlite_file};

@@ -239,6 +239,14 @@ impl BatchWriter for PgBatchWriter {
                 other?;
             }
         }
+        // The structure's automatic analysis of this batch, queued with it.
+        super::monitor::insert_jobs(
+            &mut self.tx,
+            self.structure_key,
+            &self.structure_id,
+            &meta.jobs,
+        )
+        .await?;
         self.tx.commit().await?;
         Ok(batch)
     }
