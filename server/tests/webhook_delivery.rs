@@ -303,7 +303,7 @@ async fn non_2xx_redirects_timeouts_and_refusals_are_failed_attempts() {
     let started = Instant::now();
     let a = sender.send(&outgoing(&r.url("/slow"))).await;
     assert!(
-        started.elapsed() < Duration::from_secs(2),
+        started.elapsed() < Duration::from_millis(2500),
         "{:?}",
         started.elapsed()
     );

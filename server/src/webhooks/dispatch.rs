@@ -41,13 +41,20 @@ const LEASE_MARGIN: Duration = Duration::from_secs(1);
 /// send them, log the attempts, sleep [`WebhookSettings::poll`] when nothing is due.
 ///
 /// Cancelling `shutdown` stops the loop between attempts; an attempt in progress is
-/// finished and logged first (it takes at most [`WebhookSettings::timeout`]).
+/// finished and logged first (it takes at most [`WebhookSettings::timeout`]). Settings
+/// that fail [`WebhookSettings::validate`] (or an HTTP client that cannot be set up) are
+/// logged as an error and the function returns at once; validate them at start-up to
+/// refuse to start instead.
 pub async fn run(
     store: DynStore,
     settings: Arc<WebhookSettings>,
     worker: String,
     shutdown: CancellationToken,
 ) {
+    if let Err(e) = settings.validate() {
+        tracing::error!(worker, error = %e, "webhook dispatcher cannot start");
+        return;
+    }
     let sender = match Sender::new(&settings) {
         Ok(s) => s,
         Err(e) => {
@@ -202,9 +209,19 @@ pub async fn round(
         };
         done.attempts += 1;
         trace_attempt(worker, sub.id, &log, next);
-        if let Err(e) = store.record_attempt(worker, &log, next).await {
-            outcome = Err(e);
-            break;
+        match store.record_attempt(worker, &log, next).await {
+            Ok(()) => {}
+            // The claim was lost (it expired and another dispatcher took the
+            // subscription) or the subscription was deleted meanwhile: stop, nothing
+            // is wrong with the store.
+            Err(e @ (StoreError::Conflict(_) | StoreError::NotFound(_))) => {
+                tracing::warn!(worker, subscription = %sub.id, error = %e, "webhook dispatcher: attempt not logged; round stopped");
+                break;
+            }
+            Err(e) => {
+                outcome = Err(e);
+                break;
+            }
         }
         if !attempt.delivered() {
             break;
