@@ -14,6 +14,7 @@
 pub mod alerts;
 pub mod analysis;
 pub mod api;
+pub mod backoff;
 pub mod cli;
 pub mod ingest;
 pub mod input;
@@ -25,3 +26,5 @@ pub mod pipeline;
 pub mod settings;
 pub mod store;
 pub mod units;
+pub mod webhooks;
+pub mod worker_id;

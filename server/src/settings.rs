@@ -24,6 +24,9 @@ pub struct JobSettings {
     /// Fault injection for tests only: each attempt waits this long after its claim
     /// before it computes (0 = off), so that a test can stop a worker in the middle.
     pub fault_pause: Duration,
+    /// Time one attempt may compute before it counts as failed and is retried (the
+    /// computation itself cannot be interrupted; its result is dropped).
+    pub timeout: Duration,
 }
 
 impl Default for JobSettings {
@@ -36,6 +39,7 @@ impl Default for JobSettings {
             retry_max: Duration::from_secs(300),
             poll: Duration::from_millis(500),
             fault_pause: Duration::ZERO,
+            timeout: Duration::from_secs(600),
         }
     }
 }
@@ -45,4 +49,6 @@ impl Default for JobSettings {
 pub struct Settings {
     /// Analysis jobs.
     pub jobs: JobSettings,
+    /// Webhook delivery.
+    pub webhooks: crate::webhooks::WebhookSettings,
 }

@@ -182,7 +182,7 @@ pub fn run_epoch(
     use super::{AnalysisError, field, params};
     use crate::model::{Analysis, AnalysisKind, AnalysisStatus, Frame, now_utc};
     let started = std::time::Instant::now();
-    let errs = params::validate(&req.method, &req.options);
+    let errs = params::validate_for(&req.method, &req.options, points, structure.dimension);
     if !errs.is_empty() {
         return Err(AnalysisError::Invalid(errs));
     }

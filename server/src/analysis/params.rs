@@ -115,6 +115,63 @@ fn ids_errors(ids: &[String], at: &str, errs: &mut Vec<FieldError>) {
     }
 }
 
+/// [`validate`], and the method against the structure: every element vertex and group
+/// member is one of its `points`, an element has `dimension + 1` vertices, and Delaunay
+/// (a 2D triangulation) is not asked of a 3D structure. Every bad field is listed.
+pub fn validate_for(
+    method: &MethodSpec,
+    options: &FieldOptions,
+    points: &[crate::model::StoredPoint],
+    dimension: u8,
+) -> Vec<FieldError> {
+    let mut errs = validate(method, options);
+    let known: std::collections::HashSet<&str> = points.iter().map(|p| p.id.as_str()).collect();
+    let unknown = |ids: &[String], at: String, errs: &mut Vec<FieldError>| {
+        for (j, id) in ids.iter().enumerate() {
+            if id_problem(id).is_none() && !known.contains(id.as_str()) {
+                errs.push(FieldError::new(
+                    format!("{at}/{j}"),
+                    format!("{id} is not a point of the structure"),
+                ));
+            }
+        }
+    };
+    match method {
+        MethodSpec::Elements { elements } => {
+            for (i, e) in elements.iter().enumerate() {
+                let at = format!("/method/elements/{i}/vertices");
+                if e.vertices.len() != usize::from(dimension) + 1 {
+                    errs.push(FieldError::new(
+                        at.clone(),
+                        format!(
+                            "an element of a {dimension}D structure has {} vertices, not {}",
+                            usize::from(dimension) + 1,
+                            e.vertices.len()
+                        ),
+                    ));
+                }
+                unknown(&e.vertices, at, &mut errs);
+            }
+        }
+        MethodSpec::Groups { groups } => {
+            for (i, g) in groups.iter().enumerate() {
+                unknown(
+                    &g.point_ids,
+                    format!("/method/groups/{i}/point_ids"),
+                    &mut errs,
+                );
+            }
+        }
+        MethodSpec::Delaunay if dimension != 2 => errs.push(FieldError::new(
+            "/method/kind",
+            "delaunay triangulates 2D structures; use elements (tetrahedra), groups, \
+             neighbourhood or network in 3D",
+        )),
+        _ => {}
+    }
+    errs
+}
+
 /// Check `method` (at pointer `/method`) and `options` (at `/options`); every bad
 /// field is listed.
 pub fn validate(method: &MethodSpec, options: &FieldOptions) -> Vec<FieldError> {

@@ -80,45 +80,20 @@ pub fn validate(
     method: &params::MethodSpec,
     options: &params::FieldOptions,
     points: &[StoredPoint],
+    dimension: u8,
 ) -> Vec<FieldError> {
-    let mut errs = params::validate(method, options);
-    let known: std::collections::HashSet<&str> = points.iter().map(|p| p.id.as_str()).collect();
-    let unknown = |ids: &[String], at: String, errs: &mut Vec<FieldError>| {
-        for (j, id) in ids.iter().enumerate() {
-            if crate::model::id_problem(id).is_none() && !known.contains(id.as_str()) {
-                errs.push(FieldError::new(
-                    format!("{at}/{j}"),
-                    format!("{id} is not a point of the structure"),
-                ));
-            }
-        }
-    };
-    match method {
-        params::MethodSpec::Elements { elements } => {
-            for (i, e) in elements.iter().enumerate() {
-                unknown(
-                    &e.vertices,
-                    format!("/method/elements/{i}/vertices"),
-                    &mut errs,
-                );
-            }
-        }
-        params::MethodSpec::Groups { groups } => {
-            for (i, g) in groups.iter().enumerate() {
-                unknown(
-                    &g.point_ids,
-                    format!("/method/groups/{i}/point_ids"),
-                    &mut errs,
-                );
-            }
-        }
-        other => errs.push(FieldError::new(
+    let mut errs = params::validate_for(method, options, points, dimension);
+    if !matches!(
+        method,
+        params::MethodSpec::Elements { .. } | params::MethodSpec::Groups { .. }
+    ) {
+        errs.push(FieldError::new(
             "/method/kind",
             format!(
                 "a series follows fixed regions: use elements or groups, not {}",
-                other.name()
+                method.name()
             ),
-        )),
+        ));
     }
     errs
 }
@@ -189,7 +164,7 @@ pub fn run_series(
     req: &SeriesAnalysisRequest,
 ) -> Result<Analysis, AnalysisError> {
     let started = std::time::Instant::now();
-    let errs = validate(&req.method, &req.options, points);
+    let errs = validate(&req.method, &req.options, points, structure.dimension);
     if !errs.is_empty() {
         return Err(AnalysisError::Invalid(errs));
     }

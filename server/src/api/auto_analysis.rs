@@ -45,8 +45,9 @@ pub async fn put_auto_analysis(
     Path(id): Path<String>,
     ApiJson(body): ApiJson<AutoAnalysis>,
 ) -> Result<axum::Json<AutoAnalysis>, ApiError> {
-    caller.structure(&state, Scope::Write, &id).await?;
-    let errs = body.validate();
+    let s = caller.structure(&state, Scope::Write, &id).await?;
+    let points = state.store.list_points(&id).await?;
+    let errs = body.validate(&points, s.dimension);
     if !errs.is_empty() {
         return Err(ApiError::fields(errs));
     }

@@ -247,14 +247,23 @@ fn created(structure: &str, id: Uuid, body: &serde_json::Value, replayed: bool) 
 }
 
 /// The structure's automatic analysis, if it has one.
+///
+/// A stored setting that no longer parses queues nothing (and is logged): a monitoring
+/// setting never stops the data from being stored.
 async fn auto_analysis(state: &AppState, id: &str) -> Result<Option<AutoAnalysis>, ApiError> {
-    state
-        .store
-        .get_auto_analysis(id)
-        .await?
-        .map(serde_json::from_value)
-        .transpose()
-        .map_err(|e| ApiError::Internal(format!("stored automatic analysis: {e}")))
+    let Some(v) = state.store.get_auto_analysis(id).await? else {
+        return Ok(None);
+    };
+    match serde_json::from_value(v) {
+        Ok(a) => Ok(Some(a)),
+        Err(e) => {
+            tracing::error!(
+                structure = id,
+                "the stored automatic analysis does not parse; no job queued: {e}"
+            );
+            Ok(None)
+        }
+    }
 }
 
 /// The jobs the automatic analysis queues for a batch with `epochs`.
@@ -280,9 +289,12 @@ async fn auto_jobs(
             .collect()
     };
     let created_at = now_utc();
+    // One microsecond apart, oldest epoch first: jobs queued by batches run one at a
+    // time per structure in this order.
     auto.plan(&batch, &stored)
         .into_iter()
-        .map(|input| {
+        .zip(0i64..)
+        .map(|(input, i)| {
             Ok(NewJob {
                 id: Uuid::new_v4(),
                 structure_id: id.to_owned(),
@@ -291,7 +303,7 @@ async fn auto_jobs(
                 request: serde_json::to_value(&input)
                     .map_err(|e| ApiError::Internal(e.to_string()))?,
                 max_attempts: state.settings.jobs.max_attempts,
-                created_at,
+                created_at: created_at + time::Duration::microseconds(i),
             })
         })
         .collect()

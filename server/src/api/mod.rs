@@ -20,6 +20,7 @@ pub mod metrics;
 pub mod page;
 pub mod problem;
 pub mod structures;
+pub mod webhooks;
 
 use std::sync::Arc;
 use std::time::Duration;
@@ -125,6 +126,7 @@ const DESCRIPTION: &str = include_str!("description.md");
         (name = "compute", description = "Stateless strain computations; nothing is stored"),
         (name = "analyses", description = "Analyses of a structure's readings (run as jobs, queued by a request or automatically by an arriving batch), their history and exports"),
         (name = "alerts", description = "Alert rules (the user's thresholds; Kinema ships none), the alert state of each region, the alert event log, and reference strains for information"),
+        (name = "webhooks", description = "Webhook subscriptions (admin keys), signed event deliveries and their log"),
         (name = "service", description = "Health, readiness and metrics"),
     )
 )]
@@ -161,6 +163,7 @@ fn api_routes() -> OpenApiRouter<AppState> {
         .merge(jobs::routes())
         .merge(auto_analysis::routes())
         .merge(alerts::routes())
+        .merge(webhooks::routes())
 }
 
 /// The OpenAPI document of this build (what `/openapi.json` serves).

@@ -2,6 +2,7 @@
 //! service's commands. They share the database flag ([`DbArgs`]).
 
 use std::net::SocketAddr;
+use std::sync::Arc;
 use std::time::Duration;
 
 use clap::{Args, Subcommand, ValueEnum};
@@ -14,6 +15,8 @@ use crate::keys;
 use crate::model::{Scope, id_problem};
 use crate::settings::{JobSettings, Settings};
 use crate::store::{self, DynStore, StoreError, redact_url};
+use crate::webhooks::WebhookSettings;
+use crate::webhooks::policy::AllowList;
 
 /// Default database: an SQLite file in the working directory.
 pub const DEFAULT_DATABASE_URL: &str = "sqlite:kinema.db";
@@ -129,6 +132,42 @@ pub struct ServeArgs {
         hide_short_help = true
     )]
     pub job_fault_pause_ms: u64,
+    /// Seconds one attempt of a job may compute before it counts as failed (and is
+    /// retried).
+    #[arg(long, env = "KINEMA_JOB_TIMEOUT_SECS", default_value_t = JobSettings::default().timeout.as_secs())]
+    pub job_timeout_secs: u64,
+    /// Destinations webhooks may reach: comma-separated CIDR blocks allowed on purpose
+    /// (an on-premises system, e.g. `10.20.0.0/16`), plus `public` (public unicast
+    /// addresses) or `none`. Private, loopback and link-local addresses are refused
+    /// unless listed.
+    #[arg(long, env = "KINEMA_WEBHOOK_ALLOW", default_value_t = WebhookSettings::default().allow)]
+    pub webhook_allow: AllowList,
+    /// Webhook delivery loops in this process (0: none; several processes may share a
+    /// PostgreSQL database).
+    #[arg(long, env = "KINEMA_WEBHOOK_DISPATCHERS", default_value_t = WebhookSettings::default().dispatchers)]
+    pub webhook_dispatchers: usize,
+    /// Attempts a webhook delivery gets before it fails (it can be replayed by hand).
+    #[arg(long, env = "KINEMA_WEBHOOK_MAX_ATTEMPTS", default_value_t = WebhookSettings::default().max_attempts)]
+    pub webhook_max_attempts: u32,
+    /// Back-off ceiling after a delivery's first failed attempt, milliseconds (doubled
+    /// after each further one; the wait is random in its upper half).
+    #[arg(long, env = "KINEMA_WEBHOOK_RETRY_BASE_MS", default_value_t = millis(WebhookSettings::default().retry_base))]
+    pub webhook_retry_base_ms: u64,
+    /// Largest back-off ceiling between delivery attempts, seconds.
+    #[arg(long, env = "KINEMA_WEBHOOK_RETRY_MAX_SECS", default_value_t = WebhookSettings::default().retry_max.as_secs())]
+    pub webhook_retry_max_secs: u64,
+    /// Seconds one delivery attempt may take (connect, send, answer).
+    #[arg(long, env = "KINEMA_WEBHOOK_TIMEOUT_SECS", default_value_t = WebhookSettings::default().timeout.as_secs())]
+    pub webhook_timeout_secs: u64,
+    /// Seconds a delivery loop holds a subscription (at least twice the timeout).
+    #[arg(long, env = "KINEMA_WEBHOOK_LEASE_SECS", default_value_t = WebhookSettings::default().lease.as_secs())]
+    pub webhook_lease_secs: u64,
+    /// Deliveries of one subscription taken per claim.
+    #[arg(long, env = "KINEMA_WEBHOOK_BATCH", default_value_t = WebhookSettings::default().batch)]
+    pub webhook_batch: usize,
+    /// Milliseconds between looks for due deliveries by an idle delivery loop.
+    #[arg(long, env = "KINEMA_WEBHOOK_POLL_MS", default_value_t = millis(WebhookSettings::default().poll))]
+    pub webhook_poll_ms: u64,
 }
 
 fn millis(d: Duration) -> u64 {
@@ -170,7 +209,12 @@ impl ServeArgs {
                 Ok(())
             }
         };
-        positive("job-lease-ms", self.job_lease_ms)?;
+        if self.job_lease_ms < 100 {
+            return Err(ServiceError::Usage(
+                "--job-lease-ms must be at least 100".into(),
+            ));
+        }
+        positive("job-timeout-secs", self.job_timeout_secs)?;
         positive("job-max-attempts", u64::from(self.job_max_attempts))?;
         positive("job-retry-base-ms", self.job_retry_base_ms)?;
         positive("job-retry-max-ms", self.job_retry_max_ms)?;
@@ -184,6 +228,23 @@ impl ServeArgs {
                 retry_max: Duration::from_millis(self.job_retry_max_ms),
                 poll: Duration::from_millis(self.job_poll_ms),
                 fault_pause: Duration::from_millis(self.job_fault_pause_ms),
+                timeout: Duration::from_secs(self.job_timeout_secs),
+            },
+            webhooks: {
+                let w = WebhookSettings {
+                    dispatchers: self.webhook_dispatchers,
+                    allow: self.webhook_allow.clone(),
+                    max_attempts: self.webhook_max_attempts,
+                    retry_base: Duration::from_millis(self.webhook_retry_base_ms),
+                    retry_max: Duration::from_secs(self.webhook_retry_max_secs),
+                    timeout: Duration::from_secs(self.webhook_timeout_secs),
+                    lease: Duration::from_secs(self.webhook_lease_secs),
+                    batch: self.webhook_batch,
+                    poll: Duration::from_millis(self.webhook_poll_ms),
+                };
+                w.validate()
+                    .map_err(|e| ServiceError::Usage(e.to_string()))?;
+                w
             },
         })
     }
@@ -223,23 +284,40 @@ pub async fn serve(args: &ServeArgs) -> Result<(), ServiceError> {
     );
     // The one line on stdout: where to find the server (scripts and tests read it).
     println!("listening on http://{addr}");
-    let state = AppState::with_settings(store, limits, settings);
+    let state = AppState::with_settings(store.clone(), limits, settings);
     let stop = CancellationToken::new();
-    let workers = crate::jobs::worker::spawn(&state, &stop);
-    tracing::info!(workers = workers.len(), "job workers started");
+    let mut loops = crate::jobs::worker::spawn(&state, &stop);
+    let n_workers = loops.len();
+    loops.extend(crate::webhooks::spawn(
+        store,
+        Arc::new(state.settings.webhooks.clone()),
+        stop.clone(),
+    ));
+    tracing::info!(
+        job_workers = n_workers,
+        webhook_dispatchers = loops.len() - n_workers,
+        webhook_allow = %state.settings.webhooks.allow,
+        "monitoring loop started"
+    );
     let app = api::app(state);
+    // On the signal, workers and dispatchers stop taking new work at once, while the
+    // HTTP server lets requests in progress finish.
+    let signal_stop = stop.clone();
     let served = axum::serve(listener, app)
-        .with_graceful_shutdown(shutdown_signal())
+        .with_graceful_shutdown(async move {
+            shutdown_signal().await;
+            signal_stop.cancel();
+        })
         .await;
-    // Workers finish the job in hand (bounded: a lease that is not renewed expires and
-    // another process takes the job over).
     stop.cancel();
-    let wait = futures_util::future::join_all(workers);
+    // The job or delivery in hand is finished (bounded: a claim that is not renewed
+    // expires and another process takes the work over).
+    let wait = futures_util::future::join_all(loops);
     if tokio::time::timeout(Duration::from_secs(30), wait)
         .await
         .is_err()
     {
-        tracing::warn!("job workers did not stop within 30 s; their jobs will be claimed again");
+        tracing::warn!("workers did not stop within 30 s; their work will be claimed again");
     }
     served?;
     tracing::info!("kinema stopped");

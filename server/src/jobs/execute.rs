@@ -166,10 +166,13 @@ pub async fn execute(
         },
         _ => return Err(ExecError::Task("times of another kind of analysis".into())),
     };
-    Ok(match outcome {
-        Ok(a) => a,
-        Err(e) => failed(&s, input, Some(times), describe(e)),
-    })
+    match outcome {
+        Ok(a) => Ok(a),
+        // A bug, not the data: the attempt is retried (and the job fails when it keeps
+        // happening).
+        Err(AnalysisError::Internal(m)) => Err(ExecError::Task(m)),
+        Err(e) => Ok(failed(&s, input, Some(times), describe(e))),
+    }
 }
 
 /// The epochs of a series with their readings and the baseline, or why there are

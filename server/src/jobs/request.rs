@@ -186,7 +186,8 @@ pub async fn check(store: &DynStore, s: &Structure, input: &AnalysisInput) -> Re
             },
             Times::Epoch(e, b),
         ) => {
-            let errs = crate::analysis::params::validate(method, options);
+            let points = store.list_points(&s.id).await?;
+            let errs = crate::analysis::params::validate_for(method, options, &points, s.dimension);
             if !errs.is_empty() {
                 return Err(ApiError::fields(errs));
             }
@@ -203,7 +204,7 @@ pub async fn check(store: &DynStore, s: &Structure, input: &AnalysisInput) -> Re
             Times::Series(from, to, baseline),
         ) => {
             let points = store.list_points(&s.id).await?;
-            let errs = crate::analysis::series::validate(method, options, &points);
+            let errs = crate::analysis::series::validate(method, options, &points, s.dimension);
             if !errs.is_empty() {
                 return Err(ApiError::fields(errs));
             }
@@ -271,9 +272,10 @@ pub struct AutoAnalysis {
 pub const MAX_AUTO_JOBS_PER_BATCH: usize = 100;
 
 impl AutoAnalysis {
-    /// Check the estimator and options (each bad field with its pointer).
-    pub fn validate(&self) -> Vec<FieldError> {
-        crate::analysis::params::validate(&self.method, &self.options)
+    /// Check the estimator and options against the structure's `points` and
+    /// `dimension` (each bad field with its pointer).
+    pub fn validate(&self, points: &[crate::model::StoredPoint], dimension: u8) -> Vec<FieldError> {
+        crate::analysis::params::validate_for(&self.method, &self.options, points, dimension)
     }
 
     /// The analyses to queue for a batch whose epochs are `batch` given the epochs

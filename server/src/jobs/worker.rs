@@ -15,47 +15,19 @@ use tokio_util::sync::CancellationToken;
 use super::execute::execute;
 use super::request::AnalysisInput;
 use crate::api::AppState;
+use crate::backoff::{Backoff, later};
 use crate::model::{Job, JobOutcome, Lease, now_utc};
 use crate::settings::JobSettings;
 use crate::store::{Completed, StoreError};
 
-fn after(now: OffsetDateTime, d: Duration) -> OffsetDateTime {
-    now + time::Duration::try_from(d).unwrap_or(time::Duration::DAY)
-}
-
-/// A random fraction in [0, 1) from the operating system's generator (0.5 if it fails).
-fn unit_random() -> f64 {
-    let mut b = [0u8; 8];
-    match getrandom::fill(&mut b) {
-        Ok(()) => (u64::from_le_bytes(b) >> 11) as f64 / (1u64 << 53) as f64,
-        Err(_) => 0.5,
-    }
-}
-
-/// The wait before attempt `attempt + 1` after attempt `attempt` (from 1) failed:
-/// `base·2^(attempt−1)`, at most `max`, with "equal jitter" (half fixed, half random,
-/// common practice) so that jobs that failed together do not retry together.
-pub fn retry_delay(attempt: u32, base: Duration, max: Duration) -> Duration {
-    let exp = base.saturating_mul(1u32 << attempt.saturating_sub(1).min(20));
-    let d = exp.min(max);
-    d / 2 + d.mul_f64(unit_random() / 2.0)
-}
-
-/// A name for this process's workers: host, process ID and a random tag (so that a
-/// restarted process with the same ID is another worker).
-pub fn process_name() -> String {
-    let host = std::env::var("HOSTNAME")
-        .ok()
-        .or_else(|| std::fs::read_to_string("/etc/hostname").ok())
-        .map(|h| h.trim().to_owned())
-        .filter(|h| !h.is_empty())
-        .unwrap_or_else(|| "kinema".to_owned());
-    let mut tag = [0u8; 3];
-    let tag = match getrandom::fill(&mut tag) {
-        Ok(()) => crate::keys::hex(&tag),
-        Err(_) => "000000".to_owned(),
+/// When attempt `attempt + 1` may start after attempt `attempt` failed at `now`
+/// ([`crate::backoff`]: exponential, capped, equal jitter).
+fn retry_at(settings: &JobSettings, attempt: u32, now: OffsetDateTime) -> OffsetDateTime {
+    let b = Backoff {
+        base: settings.retry_base,
+        max: settings.retry_max,
     };
-    format!("{host}:{}:{tag}", std::process::id())
+    later(now, b.delay(attempt))
 }
 
 /// Renew `lease` every third of the lease time until `stop` is cancelled.
@@ -71,7 +43,7 @@ async fn keep_lease(
             () = stop.cancelled() => return,
             () = tokio::time::sleep(every) => {}
         }
-        let until = after(now_utc(), settings.lease);
+        let until = later(now_utc(), settings.lease);
         match state.store.renew_lease(&lease, until).await {
             Ok(()) => {}
             Err(StoreError::Conflict(m)) => {
@@ -97,22 +69,72 @@ async fn attempt(state: &AppState, settings: &JobSettings, job: &Job) -> JobOutc
         }
     };
     let started = Instant::now();
-    match execute(&state.store, &job.structure_id, &input).await {
-        Ok(a) => {
+    let run = execute(&state.store, &job.structure_id, &input);
+    let error = match tokio::time::timeout(settings.timeout, run).await {
+        Ok(Ok(a)) => {
             state.metrics.analysis(
                 a.kind.as_str(),
                 a.status.as_str(),
                 started.elapsed().as_secs_f64(),
             );
-            JobOutcome::Analysis(Box::new(a))
+            return JobOutcome::Analysis(Box::new(a));
         }
-        Err(e) => JobOutcome::Error {
-            error: e.to_string(),
-            retry_at: after(
-                now_utc(),
-                retry_delay(job.attempts, settings.retry_base, settings.retry_max),
-            ),
-        },
+        Ok(Err(e)) => e.to_string(),
+        Err(_) => format!(
+            "the attempt took longer than {} s (KINEMA_JOB_TIMEOUT_SECS)",
+            settings.timeout.as_secs()
+        ),
+    };
+    JobOutcome::Error {
+        error,
+        retry_at: retry_at(settings, job.attempts, now_utc()),
+    }
+}
+
+/// How often [`complete`] tries to store an attempt's end before giving up on it.
+const COMPLETE_TRIES: u32 = 4;
+
+/// End the attempt (`Store::complete_job` with the alert evaluation), in a task of its
+/// own so that a panic (in the evaluation of a rule, say) becomes an error outcome
+/// instead of a job that stays `running`. A database error is retried with back-off
+/// while the lease is kept; when it persists, the attempt is ended as an error.
+async fn complete(
+    state: &AppState,
+    settings: &JobSettings,
+    lease: &Lease,
+    outcome: JobOutcome,
+) -> Result<Completed, StoreError> {
+    let mut outcome = outcome;
+    let mut tries = 0;
+    loop {
+        tries += 1;
+        let (st, l, o) = (state.clone(), lease.clone(), outcome.clone());
+        let task = tokio::spawn(async move {
+            st.store
+                .complete_job(&l, &o, &crate::alerts::evaluate, now_utc())
+                .await
+        });
+        let error = match task.await {
+            Ok(Ok(done)) => return Ok(done),
+            Ok(Err(StoreError::Conflict(m))) => return Err(StoreError::Conflict(m)),
+            Ok(Err(e)) if tries < COMPLETE_TRIES => {
+                tracing::warn!(job = %lease.job_id, "storing the end of the attempt failed, retrying: {e}");
+                tokio::time::sleep(Duration::from_millis(200) * 2u32.pow(tries)).await;
+                continue;
+            }
+            Ok(Err(e)) => format!("storing the result failed: {e}"),
+            Err(e) => format!("ending the attempt panicked: {e}"),
+        };
+        if matches!(outcome, JobOutcome::Error { .. }) {
+            // Even the error could not be stored: leave the job to its lease.
+            return Err(StoreError::Invalid(error));
+        }
+        tracing::warn!(job = %lease.job_id, "{error}");
+        outcome = JobOutcome::Error {
+            error,
+            retry_at: retry_at(settings, lease.attempt, now_utc()),
+        };
+        tries = 0;
     }
 }
 
@@ -130,26 +152,33 @@ pub async fn run_once(
     let now = now_utc();
     let Some((job, lease)) = state
         .store
-        .claim_job(worker, now, after(now, settings.lease))
+        .claim_job(worker, now, later(now, settings.lease))
         .await?
     else {
         return Ok(None);
     };
     tracing::info!(job = %job.id, structure = %job.structure_id, attempt = lease.attempt, worker, "job claimed");
     let stop = CancellationToken::new();
-    let keeper = tokio::spawn(keep_lease(
+    // The keeper stops with this function, however it ends (also when it is dropped).
+    let _stop_keeper = stop.clone().drop_guard();
+    tokio::spawn(keep_lease(
         state.clone(),
         lease.clone(),
         settings.clone(),
         stop.clone(),
     ));
-    let outcome = attempt(state, settings, &job).await;
-    stop.cancel();
-    let _ = keeper.await;
-    let done = state
-        .store
-        .complete_job(&lease, &outcome, &crate::alerts::evaluate, now_utc())
-        .await?;
+    // The attempt runs in a task of its own: a panic is an error outcome.
+    let outcome = {
+        let (st, se, j) = (state.clone(), settings.clone(), job.clone());
+        match tokio::spawn(async move { attempt(&st, &se, &j).await }).await {
+            Ok(o) => o,
+            Err(e) => JobOutcome::Error {
+                error: format!("the attempt panicked: {e}"),
+                retry_at: retry_at(settings, lease.attempt, now_utc()),
+            },
+        }
+    };
+    let done = complete(state, settings, &lease, outcome).await?;
     tracing::info!(job = %job.id, status = done.job.status.as_str(), alerts = done.alert_events.len(), deliveries = done.deliveries, "job ended");
     Ok(Some(done))
 }
@@ -193,7 +222,7 @@ pub async fn run(
 /// `shutdown` is cancelled (a job in progress is finished first).
 pub fn spawn(state: &AppState, shutdown: &CancellationToken) -> Vec<JoinHandle<()>> {
     let settings = Arc::new(state.settings.jobs.clone());
-    let process = process_name();
+    let process = crate::worker_id::process_name();
     (0..settings.workers)
         .map(|n| {
             tokio::spawn(run(
@@ -211,25 +240,19 @@ mod tests {
     use super::*;
 
     #[test]
-    fn retry_delay_doubles_within_its_jitter_and_is_capped() {
-        let base = Duration::from_secs(4);
-        let max = Duration::from_secs(60);
-        for attempt in 1..=10u32 {
-            let full = (base * 2u32.pow(attempt - 1)).min(max);
-            for _ in 0..50 {
-                let d = retry_delay(attempt, base, max);
-                assert!(
-                    d >= full / 2 && d <= full,
-                    "attempt {attempt}: {d:?} vs {full:?}"
-                );
-            }
-        }
-        // Huge attempt numbers do not overflow.
-        assert!(retry_delay(u32::MAX, base, max) <= max);
-    }
-
-    #[test]
-    fn process_names_differ_between_calls() {
-        assert_ne!(process_name(), process_name());
+    fn retries_wait_by_the_backoff() {
+        let now = now_utc();
+        assert_eq!(
+            later(now, Duration::from_secs(60)),
+            now + time::Duration::minutes(1)
+        );
+        assert!(later(now, Duration::MAX) > now);
+        let s = JobSettings::default();
+        // Equal jitter after the first failure: between half the base (5 s) and the base.
+        let t = retry_at(&s, 1, now);
+        let lo = now + time::Duration::milliseconds(2500);
+        let hi = now + time::Duration::seconds(5);
+        assert!(t >= lo && t <= hi, "{t}");
+        assert!(retry_at(&s, u32::MAX, now) <= now + time::Duration::seconds(300));
     }
 }

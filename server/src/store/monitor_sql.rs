@@ -189,14 +189,22 @@ macro_rules! monitor_sql {
         }
 
         /// The oldest claimable job, locked (PostgreSQL skips jobs other claims hold).
+        /// Jobs queued by batches run one at a time per structure, in the order they
+        /// were queued (`created_at`, then ID), so that the alert states of a structure
+        /// follow its epochs in order; requested analyses run in any order.
         async fn next_claimable(
             c: &mut Conn,
             now: OffsetDateTime,
         ) -> Result<Option<Uuid>, StoreError> {
             let found: Option<(Uuid,)> = sqlx::query_as(concat!(
-                "SELECT id FROM jobs WHERE (status = 'queued' AND run_after <= $1) \
-                 OR (status = 'running' AND lease_expires_at < $1) \
-                 ORDER BY run_after, created_at, id LIMIT 1",
+                "SELECT j.id FROM jobs j WHERE ((j.status = 'queued' AND j.run_after <= $1) \
+                 OR (j.status = 'running' AND j.lease_expires_at < $1)) \
+                 AND (j.origin <> 'batch' OR NOT EXISTS (SELECT 1 FROM jobs o \
+                      WHERE o.structure_key = j.structure_key AND o.origin = 'batch' \
+                      AND o.status IN ('queued', 'running') \
+                      AND (o.created_at < j.created_at \
+                           OR (o.created_at = j.created_at AND o.id < j.id)))) \
+                 ORDER BY j.run_after, j.created_at, j.id LIMIT 1",
                 $skip_locked
             ))
             .bind(db_time(now))
@@ -353,6 +361,19 @@ macro_rules! monitor_sql {
             now: OffsetDateTime,
         ) -> Result<Completed, StoreError> {
             let mut tx = store.write_tx().await?;
+            // Lock order: the structure row before the job row, as `delete_structure`
+            // (whose cascade reaches the job) takes them; the other order could deadlock.
+            let owner: Option<(String,)> = sqlx::query_as(
+                "SELECT s.id FROM jobs j JOIN structures s ON s.key = j.structure_key \
+                 WHERE j.id = $1",
+            )
+            .bind(lease.job_id)
+            .fetch_optional(&mut *tx)
+            .await?;
+            let Some((structure_id,)) = owner else {
+                return Err(stale(lease));
+            };
+            locked_structure(&mut tx, &structure_id).await?;
             let job = leased_job(&mut tx, lease).await?;
             let done = match outcome {
                 JobOutcome::Analysis(a) => store_result(&mut tx, &job, a, evaluate, now).await?,
