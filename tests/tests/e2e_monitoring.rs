@@ -215,10 +215,7 @@ fn a_batch_raises_and_clears_alerts_and_the_receiver_hears_of_it(db: &TestDb) {
         .as_str()
         .expect("the secret, shown once")
         .to_owned();
-    let hook_id = hook["subscription"]["id"]
-        .as_str()
-        .expect("id")
-        .to_owned();
+    let hook_id = hook["subscription"]["id"].as_str().expect("id").to_owned();
 
     // One logger batch with three surveys: ε1 rises past review, past alarm, then falls
     // below review − hysteresis.

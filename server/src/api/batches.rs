@@ -27,7 +27,7 @@ use super::problem::{ApiError, FieldError, Problem};
 use crate::ingest::body::BodyReader;
 use crate::ingest::validate::parse_epoch;
 use crate::ingest::{self, Context, IngestError, Sink};
-use crate::jobs::request::{AutoAnalysis, AutoBaseline};
+use crate::jobs::request::{AutoAnalysis, AutoBaseline, MAX_AUTO_JOBS_PER_BATCH};
 use crate::keys::hex;
 use crate::model::{
     Batch, IdempotentBatch, JobOrigin, NewJob, Scope, from_unix_micros, now_utc, to_unix_micros,
@@ -275,19 +275,17 @@ async fn auto_jobs(
     epochs: &std::collections::BTreeSet<OffsetDateTime>,
 ) -> Result<Vec<NewJob>, ApiError> {
     let batch: Vec<_> = epochs.iter().copied().collect();
-    let stored: Vec<_> = if auto.baseline == AutoBaseline::Reference {
-        Vec::new()
-    } else {
-        // The epochs stored before this batch (its own are not visible yet), up to its
-        // last: what a baseline of `first_epoch` or `previous_epoch` is chosen from.
-        state
-            .store
-            .list_epochs(id, None, batch.last().copied())
-            .await?
-            .into_iter()
-            .map(|e| e.epoch)
-            .collect()
-    };
+    // The stored epochs a baseline of `first_epoch` or `previous_epoch` may be (the
+    // batch's own are not visible yet): the first, and the latest before each epoch the
+    // plan analyses (indexed lookups, not a scan of the history).
+    let mut stored = Vec::new();
+    if auto.baseline != AutoBaseline::Reference {
+        let skip = batch.len().saturating_sub(MAX_AUTO_JOBS_PER_BATCH);
+        for &e in &batch[skip..] {
+            let (first, before) = state.store.epoch_neighbours(id, e).await?;
+            stored.extend(first.into_iter().chain(before));
+        }
+    }
     let created_at = now_utc();
     // One microsecond apart, oldest epoch first: jobs queued by batches run one at a
     // time per structure in this order.

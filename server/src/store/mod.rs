@@ -244,6 +244,15 @@ pub trait Store: Send + Sync + 'static {
         to: Option<OffsetDateTime>,
     ) -> Result<Vec<EpochSummary>, StoreError>;
 
+    /// The first epoch of a structure with readings, and the latest epoch with readings
+    /// before `before` (each `None` when there is none): two indexed lookups, not a
+    /// scan of the structure's history.
+    async fn epoch_neighbours(
+        &self,
+        structure: &str,
+        before: OffsetDateTime,
+    ) -> Result<(Option<OffsetDateTime>, Option<OffsetDateTime>), StoreError>;
+
     /// The readings of a structure at one epoch, in point ID order (metres). Empty
     /// when there are none (or the structure does not exist).
     async fn readings_at(

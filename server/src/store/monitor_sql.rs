@@ -373,16 +373,45 @@ macro_rules! monitor_sql {
             let Some((structure_id,)) = owner else {
                 return Err(stale(lease));
             };
-            locked_structure(&mut tx, &structure_id).await?;
-            let job = leased_job(&mut tx, lease).await?;
-            let done = match outcome {
-                JobOutcome::Analysis(a) => store_result(&mut tx, &job, a, evaluate, now).await?,
+            let r = end_attempt(&mut tx, &structure_id, lease, outcome, evaluate, now).await;
+            settle(tx, r).await
+        }
+
+        async fn end_attempt(
+            tx: &mut Conn,
+            structure_id: &str,
+            lease: &Lease,
+            outcome: &JobOutcome,
+            evaluate: &Evaluator,
+            now: OffsetDateTime,
+        ) -> Result<Completed, StoreError> {
+            locked_structure(tx, structure_id).await?;
+            let job = leased_job(tx, lease).await?;
+            match outcome {
+                JobOutcome::Analysis(a) => store_result(tx, &job, a, evaluate, now).await,
                 JobOutcome::Error { error, retry_at } => {
-                    fail_attempt(&mut tx, job, lease, error, *retry_at, now).await?
+                    fail_attempt(tx, job, lease, error, *retry_at, now).await
                 }
-            };
-            tx.commit().await?;
-            Ok(done)
+            }
+        }
+
+        /// Commit when `r` is `Ok`, and roll back at once otherwise: a dropped sqlx
+        /// transaction rolls back only when its connection is next used, and keeps its
+        /// row locks (which `SKIP LOCKED` claims then skip) until then.
+        async fn settle<T>(
+            tx: sqlx::Transaction<'static, $Db>,
+            r: Result<T, StoreError>,
+        ) -> Result<T, StoreError> {
+            match r {
+                Ok(v) => {
+                    tx.commit().await?;
+                    Ok(v)
+                }
+                Err(e) => {
+                    let _ = tx.rollback().await;
+                    Err(e)
+                }
+            }
         }
 
         /// Record a failed attempt: queue the job again, or fail it when it has used all
@@ -1172,6 +1201,16 @@ macro_rules! monitor_sql {
             next: DeliveryNext,
         ) -> Result<(), StoreError> {
             let mut tx = store.write_tx().await?;
+            let r = record_attempt_in(&mut tx, worker, attempt, next).await;
+            settle(tx, r).await
+        }
+
+        async fn record_attempt_in(
+            tx: &mut Conn,
+            worker: &str,
+            attempt: &DeliveryAttempt,
+            next: DeliveryNext,
+        ) -> Result<(), StoreError> {
             let id = attempt.delivery_id;
             let found: Option<(Uuid, String, Option<String>)> = sqlx::query_as(concat!(
                 "SELECT d.subscription_id, d.status, w.dispatch_worker FROM deliveries d \
@@ -1191,7 +1230,7 @@ macro_rules! monitor_sql {
             if status != "pending" {
                 return Err(StoreError::Conflict(format!("delivery {id} is {status}, not pending")));
             }
-            insert_attempt(&mut tx, attempt).await?;
+            insert_attempt(tx, attempt).await?;
             let (status, next_at, delivered_at) = match next {
                 DeliveryNext::Delivered => ("delivered", None, Some(attempt.at)),
                 DeliveryNext::RetryAt(t) => ("pending", Some(t), None),
@@ -1209,7 +1248,6 @@ macro_rules! monitor_sql {
             .bind(id)
             .execute(&mut *tx)
             .await?;
-            tx.commit().await?;
             Ok(())
         }
 

@@ -462,6 +462,14 @@ macro_rules! impl_store {
                     batches::list_epochs(&self.pool, structure, from, to).await
                 }
 
+                async fn epoch_neighbours(
+                    &self,
+                    structure: &str,
+                    before: OffsetDateTime,
+                ) -> Result<(Option<OffsetDateTime>, Option<OffsetDateTime>), StoreError> {
+                    batches::epoch_neighbours(&self.pool, structure, before).await
+                }
+
                 async fn readings_at(
                     &self,
                     structure: &str,
@@ -801,6 +809,34 @@ pub(crate) use analyses_sql;
 /// PostgreSQL (whose default collation follows the locale).
 macro_rules! batch_reads_sql {
     (pool = $Pool:ty, time = $Time:ty, id_order = $id_order:literal $(,)?) => {
+        pub(super) async fn epoch_neighbours(
+            pool: &$Pool,
+            structure: &str,
+            before: OffsetDateTime,
+        ) -> Result<(Option<OffsetDateTime>, Option<OffsetDateTime>), StoreError> {
+            use $crate::store::rows::DbTime;
+            // Both are MIN/MAX over the readings' primary key (structure_key, epoch, …).
+            let (first,): (Option<$Time>,) = sqlx::query_as(
+                "SELECT MIN(r.epoch) FROM readings r JOIN structures s ON s.key = r.structure_key \
+                 WHERE s.id = $1",
+            )
+            .bind(structure)
+            .fetch_one(pool)
+            .await?;
+            let (prev,): (Option<$Time>,) = sqlx::query_as(
+                "SELECT MAX(r.epoch) FROM readings r JOIN structures s ON s.key = r.structure_key \
+                 WHERE s.id = $1 AND r.epoch < $2",
+            )
+            .bind(structure)
+            .bind(<$Time as DbTime>::from_time(before))
+            .fetch_one(pool)
+            .await?;
+            Ok((
+                first.map(DbTime::into_time).transpose()?,
+                prev.map(DbTime::into_time).transpose()?,
+            ))
+        }
+
         pub(super) async fn get_batch(
             pool: &$Pool,
             structure: &str,

@@ -16,6 +16,7 @@ crate::contract!(
     batches_page_by_received_at_and_id,
     delete_structure_removes_batches_and_readings,
     three_d_readings_keep_uz_and_sigma_z,
+    epoch_neighbours_are_the_first_and_the_latest_before,
 );
 
 const T1: OffsetDateTime = datetime!(2026-11-30 06:00:00.000001 UTC);
@@ -370,4 +371,35 @@ async fn three_d_readings_keep_uz_and_sigma_z(store: DynStore) {
     let r = store.readings_at("D3", T1).await.expect("readings");
     assert_eq!(r[0].u, [0.1, 0.2, -0.3]);
     assert_eq!(r[0].sigma.as_deref(), Some(&[0.001, 0.002, 0.003][..]));
+}
+
+async fn epoch_neighbours_are_the_first_and_the_latest_before(store: DynStore) {
+    setup(&store, "W9").await;
+    let t3 = datetime!(2026-12-01 00:00:00 UTC);
+    let none = store.epoch_neighbours("W9", t3).await.expect("empty");
+    assert_eq!(none, (None, None));
+    write(
+        &store,
+        "W9",
+        &[
+            ("P1", T2, 0.0, 0.0, None),
+            ("P1", T1, 0.0, 0.0, None),
+            ("P2", t3, 0.0, 0.0, None),
+        ],
+        None,
+    )
+    .await
+    .expect("batch");
+    let n = |t| store.epoch_neighbours("W9", t);
+    assert_eq!(n(t3).await.expect("t3"), (Some(T1), Some(T2)));
+    assert_eq!(n(T2).await.expect("T2"), (Some(T1), Some(T1)));
+    assert_eq!(
+        n(T1).await.expect("T1"),
+        (Some(T1), None),
+        "strictly before"
+    );
+    assert_eq!(
+        store.epoch_neighbours("NOPE", t3).await.expect("unknown"),
+        (None, None)
+    );
 }
