@@ -20,6 +20,10 @@ standard library only; the output is the same on every run.
   alrw01/analysis-S6-groups.json      the same epoch, one fit per bay half (8 groups)
   alrw01/analysis-series-groups.json  all seven surveys, cumulative strain and rates per
                               bay half
+  alrw01/auto-analysis.json   PUT /v1/structures/ALRW-01/auto-analysis: every arriving
+                              survey analysed per bay half against the first survey
+  alrw01/alert-rule.json      POST /v1/structures/ALRW-01/alert-rules: principal tension
+                              with two levels (thresholds invented for the demo)
   hsls03/analysis.json        POST /v1/structures/HSLS-03/analyses: the current epoch
                               against the reference, Delaunay triangles (GeoJSON export)
   compute/gradient.json       POST /v1/compute/gradient (one measured gradient of the wall)
@@ -176,6 +180,22 @@ def analyses():
         {"kind": "series", "baseline_epoch": times["S0"],
          "method": {"kind": "groups", "groups": group_list},
          "options": {"use_precision": True}, "strain_unit": "microstrain"},
+    )
+    # The monitoring loop: every survey that arrives is analysed per bay half against S0,
+    # and compared with the wall's alert rule. The thresholds are invented for the demo
+    # (a user's configuration; Kinema ships no limit values).
+    write_json(
+        os.path.join(HERE, "alrw01", "auto-analysis.json"),
+        {"method": {"kind": "groups", "groups": group_list},
+         "options": {"use_precision": True}, "strain_unit": "microstrain",
+         "baseline": "first_epoch"},
+    )
+    write_json(
+        os.path.join(HERE, "alrw01", "alert-rule.json"),
+        {"name": "bay tension (demo thresholds, invented)", "quantity": "principal_tensile",
+         "unit": "microstrain",
+         "levels": [{"name": "review", "threshold": 150}, {"name": "alarm", "threshold": 300}],
+         "hysteresis": 20, "significance": {"alpha": 0.05}},
     )
     write_json(
         os.path.join(HERE, "hsls03", "analysis.json"),

@@ -2,11 +2,14 @@
 # Post the service demo's requests with curl against a running Kinema server, and check
 # every response's status (and a few of its fields).
 #
-#   demo-requests/service/post.sh BASE_URL TOKEN [OUT_DIR]
+#   demo-requests/service/post.sh BASE_URL TOKEN [OUT_DIR [RECEIVER_URL]]
 #
-# BASE_URL  e.g. http://127.0.0.1:8080
-# TOKEN     an API key with the write scope (`kinema keys create --scope write`)
-# OUT_DIR   where responses and exports are written (default target/demo/service)
+# BASE_URL      e.g. http://127.0.0.1:8080
+# TOKEN         an API key with the admin scope (`kinema keys create --scope admin`; the
+#               write scope does all but the webhook subscription)
+# OUT_DIR       where responses and exports are written (default target/demo/service)
+# RECEIVER_URL  a webhook receiver (demo-requests/service/receiver.py) to subscribe for the
+#               wall's events; the server's KINEMA_WEBHOOK_ALLOW must allow its address
 #
 # Every structure, name and ID is invented (see README.md). The script can be run
 # again on the same database: structures and points are replaced (200 instead of 201)
@@ -17,6 +20,7 @@ here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
 base="${1:?usage: post.sh BASE_URL TOKEN [OUT_DIR]}"
 token="${2:?usage: post.sh BASE_URL TOKEN [OUT_DIR]}"
 out="${3:-$here/../../target/demo/service}"
+receiver="${4:-}"
 mkdir -p "$out"
 failures=0
 
@@ -50,6 +54,17 @@ call alrw01-structure.json '201|200' PUT /v1/structures/ALRW-01 \
     -H 'Content-Type: application/json' --data-binary "@$here/alrw01/structure.json"
 call alrw01-points.json 200 PUT /v1/structures/ALRW-01/points \
     -H 'Content-Type: application/json' --data-binary "@$here/alrw01/points.json"
+echo "  the monitoring loop: every arriving survey is analysed per bay half against S0 and"
+echo "  compared with the wall's alert rule (thresholds invented for the demo):"
+call alrw01-auto-analysis.json 200 PUT /v1/structures/ALRW-01/auto-analysis \
+    -H 'Content-Type: application/json' --data-binary "@$here/alrw01/auto-analysis.json"
+call alrw01-alert-rule.json '201|200' PUT /v1/structures/ALRW-01/alert-rules/5f1c0c1e-7a2b-4c3d-9e8f-0a1b2c3d4e5f \
+    -H 'Content-Type: application/json' --data-binary "@$here/alrw01/alert-rule.json"
+if [ -n "$receiver" ]; then
+    call alrw01-webhook.json 201 POST /v1/webhooks -H 'Content-Type: application/json' \
+        --data-binary "{\"url\": \"$receiver\", \"structure_id\": \"ALRW-01\", \"description\": \"the asset register (demo receiver)\", \"events\": [\"analysis.finished\", \"analysis.failed\", \"alert.raised\", \"alert.cleared\"]}"
+    field "$out/alrw01-webhook.json" 'd["secret"]' >"$out/hook-secret"
+fi
 for s in S0 S1 S2 S3 S4 S5 S6; do
     call "alrw01-batch-$s.json" 201 POST /v1/structures/ALRW-01/batches \
         -H 'Content-Type: text/csv' -H "Idempotency-Key: alrw01-survey-$s" \
@@ -62,6 +77,51 @@ call alrw01-batch-S6-retry.json 201 POST /v1/structures/ALRW-01/batches \
 grep -qi '^idempotent-replayed: true' "$out/alrw01-batch-S6-retry.json.headers" \
     || { echo "  the retry was not marked Idempotent-Replayed" >&2; failures=$((failures + 1)); }
 call alrw01-epochs.json 200 GET /v1/structures/ALRW-01/epochs
+echo "  the seven surveys queued seven jobs; waiting for them:"
+for i in $(seq 1 300); do
+    curl -sS -o "$out/alrw01-jobs.json" -H "Authorization: Bearer $token" "$base/v1/structures/ALRW-01/jobs?limit=1000"
+    ended=$(field "$out/alrw01-jobs.json" 'sum(j["status"] in ("succeeded", "failed") for j in d["items"] if j["origin"] == "batch")')
+    [ "$ended" -ge 7 ] && break
+    sleep 0.2
+done
+call alrw01-alert-states.json 200 GET /v1/structures/ALRW-01/alert-states
+call alrw01-alert-events.json 200 GET /v1/structures/ALRW-01/alert-events
+python3 - "$out/alrw01-jobs.json" "$out/alrw01-alert-events.json" "$out/alrw01-alert-states.json" <<'PY' || failures=$((failures + 1))
+import json, sys
+jobs = [j for j in json.load(open(sys.argv[1]))["items"] if j["origin"] == "batch"]
+assert len(jobs) == 7 and all(j["status"] == "succeeded" for j in jobs), [j["status"] for j in jobs]
+events = json.load(open(sys.argv[2]))["items"]
+assert any(e["kind"] == "raised" for e in events), "no level was raised"
+for e in events:
+    ev = e["evidence"]
+    print(f"    {ev['epoch']}  {e['region']:<11} {e['kind']:<15} level {e['from_level']} -> {e['to_level']}"
+          f"  e1 = {ev['value']:6.1f} ± {ev['sd']:4.1f} {ev['unit']}")
+states = json.load(open(sys.argv[3]))["items"]
+now = ", ".join(f"{s['region']} {s['level_name']}" for s in states if s["level"] > 0)
+print(f"    now: {now or 'every bay below the first level'}")
+PY
+if [ -n "$receiver" ]; then
+    echo "  the receiver verified and logged the webhook events:"
+    python3 - "$out" <<'PY' || failures=$((failures + 1))
+import json, os, sys, time
+out = sys.argv[1]
+alerts = [e for e in json.load(open(os.path.join(out, "alrw01-alert-events.json")))["items"]
+          if e["kind"] in ("raised", "cleared")]
+want = 7 + len(alerts)
+path = os.path.join(out, "webhook-events.jsonl")
+for _ in range(300):
+    got = [json.loads(l) for l in open(path)] if os.path.exists(path) else []
+    if len(got) >= want:
+        break
+    time.sleep(0.2)
+kinds = {}
+for e in got:
+    kinds[e["type"]] = kinds.get(e["type"], 0) + 1
+print("    " + ", ".join(f"{n} {t}" for t, n in sorted(kinds.items())))
+assert len(got) == want, f"{len(got)} of {want} events arrived"
+assert [e["id"] for e in got if e["type"].startswith("alert.")] == [e["id"] for e in alerts], "alert events out of order"
+PY
+fi
 
 echo "Hollin Scar landslip (HSLS-03): East-North-Up frame, 12 GNSS antennas given in WGS84"
 call hsls03-structure.json '201|200' PUT /v1/structures/HSLS-03 \

@@ -149,6 +149,68 @@ mod tests {
     }
 }
 
+/// The method restricted to the points that have the displacements needed: a group
+/// keeps its other members (and is left out when fewer than `dimension + 1` remain), an
+/// element with a vertex without a displacement is left out. Returns the method and,
+/// for `inputs.regions_changed`, what was changed and why. Other methods are unchanged
+/// (they use the points there are).
+pub fn restrict(
+    method: &super::params::MethodSpec,
+    present: &std::collections::HashSet<&str>,
+    dimension: usize,
+) -> (super::params::MethodSpec, Vec<serde_json::Value>) {
+    use super::params::MethodSpec;
+    let mut changed = Vec::new();
+    let missing = |ids: &[String]| -> Vec<String> {
+        ids.iter()
+            .filter(|id| !present.contains(id.as_str()))
+            .cloned()
+            .collect()
+    };
+    let m = match method {
+        MethodSpec::Groups { groups } => {
+            let mut kept = Vec::with_capacity(groups.len());
+            for g in groups {
+                let gone = missing(&g.point_ids);
+                if gone.is_empty() {
+                    kept.push(g.clone());
+                    continue;
+                }
+                let rest: Vec<String> = g
+                    .point_ids
+                    .iter()
+                    .filter(|id| present.contains(id.as_str()))
+                    .cloned()
+                    .collect();
+                if rest.len() > dimension {
+                    changed.push(serde_json::json!({"region": g.name, "change": "fitted without the points left out", "points_left_out": gone}));
+                    kept.push(super::params::GroupInput {
+                        name: g.name.clone(),
+                        point_ids: rest,
+                    });
+                } else {
+                    changed.push(serde_json::json!({"region": g.name, "change": "left out: too few members have the readings needed", "points_left_out": gone}));
+                }
+            }
+            MethodSpec::Groups { groups: kept }
+        }
+        MethodSpec::Elements { elements } => {
+            let mut kept = Vec::with_capacity(elements.len());
+            for e in elements {
+                let gone = missing(&e.vertices);
+                if gone.is_empty() {
+                    kept.push(e.clone());
+                } else {
+                    changed.push(serde_json::json!({"region": e.id, "change": "left out: a vertex has not the readings needed", "points_left_out": gone}));
+                }
+            }
+            MethodSpec::Elements { elements: kept }
+        }
+        other => other.clone(),
+    };
+    (m, changed)
+}
+
 /// An epoch analysis as asked for: the epoch, an optional baseline epoch, the
 /// estimator, its options and the strain unit of the result.
 #[derive(Debug, Clone, PartialEq)]
@@ -187,6 +249,9 @@ pub fn run_epoch(
         return Err(AnalysisError::Invalid(errs));
     }
     let ep = epoch_points(points, at, baseline);
+    let present: std::collections::HashSet<&str> =
+        ep.points.iter().map(|p| p.id.as_str()).collect();
+    let (method, reduced) = restrict(&req.method, &present, usize::from(structure.dimension));
     let rfc = |t: time::OffsetDateTime| {
         t.format(&time::format_description::well_known::Rfc3339)
             .unwrap_or_default()
@@ -199,6 +264,7 @@ pub fn run_epoch(
         "readings_at_epoch": at.len(),
         "readings_at_baseline": baseline.map(<[Displacement]>::len),
         "left_out": ep.left_out,
+        "regions_changed": reduced,
     });
     let parameters = serde_json::json!({
         "method": req.method,
@@ -221,10 +287,20 @@ pub fn run_epoch(
                 "no point of the structure has the readings needed".into(),
             ));
         }
+        let empty = match &method {
+            params::MethodSpec::Elements { elements } => elements.is_empty(),
+            params::MethodSpec::Groups { groups } => groups.is_empty(),
+            _ => false,
+        };
+        if empty {
+            return Err(AnalysisError::NotComputable(
+                "no region has the readings it needs (see inputs.regions_changed)".into(),
+            ));
+        }
         let pts = field::points(usize::from(structure.dimension), ep.points.clone())?;
         let mut r = params::request(
             pts,
-            &req.method,
+            &method,
             &req.options,
             structure.length_unit,
             req.strain_unit,
@@ -269,4 +345,74 @@ pub fn run_epoch(
         created_at: now_utc(),
         duration_ms: u64::try_from(started.elapsed().as_millis()).unwrap_or(u64::MAX),
     })
+}
+
+#[cfg(test)]
+mod restrict_tests {
+    use super::restrict;
+    use crate::analysis::params::{ElementInput, GroupInput, MethodSpec};
+
+    fn ids(v: &[&str]) -> Vec<String> {
+        v.iter().map(|s| (*s).to_owned()).collect()
+    }
+
+    #[test]
+    fn groups_lose_members_without_readings_and_elements_are_left_out() {
+        let present: std::collections::HashSet<&str> = ["A", "B", "C", "D"].into_iter().collect();
+        let groups = MethodSpec::Groups {
+            groups: vec![
+                GroupInput {
+                    name: "G1".into(),
+                    point_ids: ids(&["A", "B", "C", "E"]),
+                },
+                GroupInput {
+                    name: "G2".into(),
+                    point_ids: ids(&["A", "E", "F", "B"]),
+                },
+                GroupInput {
+                    name: "G3".into(),
+                    point_ids: ids(&["B", "C", "D"]),
+                },
+            ],
+        };
+        let (m, changed) = restrict(&groups, &present, 2);
+        let MethodSpec::Groups { groups } = m else {
+            panic!("groups")
+        };
+        let kept: Vec<(&str, Vec<String>)> = groups
+            .iter()
+            .map(|g| (g.name.as_str(), g.point_ids.clone()))
+            .collect();
+        assert_eq!(
+            kept,
+            vec![("G1", ids(&["A", "B", "C"])), ("G3", ids(&["B", "C", "D"]))]
+        );
+        assert_eq!(changed.len(), 2);
+        assert_eq!(changed[0]["region"], "G1");
+        assert_eq!(changed[1]["region"], "G2");
+        assert_eq!(changed[1]["points_left_out"], serde_json::json!(["E", "F"]));
+        let elements = MethodSpec::Elements {
+            elements: vec![
+                ElementInput {
+                    id: "T1".into(),
+                    vertices: ids(&["A", "B", "C"]),
+                },
+                ElementInput {
+                    id: "T2".into(),
+                    vertices: ids(&["B", "C", "E"]),
+                },
+            ],
+        };
+        let (m, changed) = restrict(&elements, &present, 2);
+        let MethodSpec::Elements { elements } = m else {
+            panic!("elements")
+        };
+        assert_eq!(elements.len(), 1);
+        assert_eq!(elements[0].id, "T1");
+        assert_eq!(changed[0]["region"], "T2");
+        assert_eq!(
+            restrict(&MethodSpec::Delaunay, &present, 2).0,
+            MethodSpec::Delaunay
+        );
+    }
 }
