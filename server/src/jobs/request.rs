@@ -216,7 +216,7 @@ pub async fn check(store: &DynStore, s: &Structure, input: &AnalysisInput) -> Re
                     n += 1;
                 }
             }
-            if n < 2 || n > MAX_SERIES_EPOCHS {
+            if !(2..=MAX_SERIES_EPOCHS).contains(&n) {
                 return Err(ApiError::field(
                     "/from",
                     format!(
