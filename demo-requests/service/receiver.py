@@ -31,10 +31,11 @@ def verified(headers, body):
     except OSError:
         return False
     ts = headers.get("Kinema-Timestamp", "")
-    if not ts.isdigit() or abs(time.time() - int(ts)) > TOLERANCE:
+    if not (ts.isascii() and ts.isdigit()) or abs(time.time() - int(ts)) > TOLERANCE:
         return False
     mac = hmac.new(secret, ts.encode() + b"." + body, hashlib.sha256).hexdigest()
-    return hmac.compare_digest("sha256=" + mac, headers.get("Kinema-Signature", ""))
+    got = headers.get("Kinema-Signature", "").encode("latin-1", "replace")
+    return hmac.compare_digest(("sha256=" + mac).encode(), got)
 
 
 class Receiver(http.server.BaseHTTPRequestHandler):

@@ -5,9 +5,8 @@
 //! wait is drawn uniformly from `[c/2, c]`: half of it grows for sure, half is random.
 //! The random half spreads the retries of many deliveries that failed together (a
 //! receiver that was down) so that they do not all arrive at once when it comes back;
-//! the fixed half keeps a wait from shrinking to nothing. This is the "equal jitter"
-//! variant of the write-up "Exponential Backoff And Jitter" (Marc Brooker, AWS
-//! Architecture Blog, 2015); exponential back-off with jitter is common practice.
+//! the fixed half keeps a wait from shrinking to nothing. Exponential back-off with
+//! jitter, and this "equal jitter" variant of it, are common practice.
 
 use std::time::Duration;
 

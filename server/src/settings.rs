@@ -24,8 +24,9 @@ pub struct JobSettings {
     /// Fault injection for tests only: each attempt waits this long after its claim
     /// before it computes (0 = off), so that a test can stop a worker in the middle.
     pub fault_pause: Duration,
-    /// Time one attempt may compute before it counts as failed and is retried (the
-    /// computation itself cannot be interrupted; its result is dropped).
+    /// Time one attempt may compute; a longer one is stored as a failed analysis (the
+    /// same data would take as long again), and the computation's result is dropped
+    /// when it ends (it cannot be interrupted).
     pub timeout: Duration,
 }
 

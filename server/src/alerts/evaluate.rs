@@ -57,6 +57,12 @@ pub struct Basis {
     /// The epoch, RFC 3339 UTC.
     #[serde(with = "time::serde::rfc3339")]
     pub epoch: OffsetDateTime,
+    /// What the value is measured from: the analysis's baseline epoch, RFC 3339 UTC, or
+    /// `null` for the reference coordinates. Two values form a rate only when they are
+    /// measured from the same thing, or when the later one is the change since the
+    /// earlier one's epoch.
+    #[serde(default, with = "time::serde::rfc3339::option")]
+    pub from: Option<OffsetDateTime>,
 }
 
 /// What a region's state keeps between evaluations ([`AlertState::data`]).
@@ -258,6 +264,7 @@ fn step(
             value: to_strain(b.value),
             sd: b.sd.map(to_strain),
             epoch: view.epoch,
+            from: analysis.baseline_epoch,
         });
         let mine = |b: &Option<Basis>| b.clone().filter(|b| b.of == rule.basis_of);
         // A re-analysis of the same epoch forms its rate from the epoch before.
@@ -278,22 +285,34 @@ fn step(
             match (&basis, earlier) {
                 (Some(now_b), Some(then)) if then.epoch < now_b.epoch => {
                     let dt_days = (now_b.epoch - then.epoch).as_seconds_f64() / DAY_S;
-                    let sd = match (now_b.sd, then.sd) {
-                        (Some(a), Some(b)) => Some(a.hypot(b) / dt_days),
-                        _ => None,
+                    // Measured from the same thing: the rate is the difference over the
+                    // time; the later value being the change since the earlier epoch
+                    // (a `previous_epoch` baseline): it is the increment itself.
+                    let change = if now_b.from == then.from {
+                        let sd = match (now_b.sd, then.sd) {
+                            (Some(a), Some(b)) => Some(a.hypot(b)),
+                            _ => None,
+                        };
+                        Some((now_b.value - then.value, sd))
+                    } else if now_b.from == Some(then.epoch) {
+                        Some((now_b.value, now_b.sd))
+                    } else {
+                        None
                     };
-                    Some((
-                        Measured {
-                            value: (now_b.value - then.value) / dt_days,
-                            sd,
-                            sd_approximation: base.is_some_and(|b| b.sd_approximation),
-                        },
-                        StrainUnit::Strain,
-                        RateFrom::Previous {
-                            from_epoch: then.epoch,
-                            dt_days,
-                        },
-                    ))
+                    change.map(|(dv, sd)| {
+                        (
+                            Measured {
+                                value: dv / dt_days,
+                                sd: sd.map(|s| s / dt_days),
+                                sd_approximation: base.is_some_and(|b| b.sd_approximation),
+                            },
+                            StrainUnit::Strain,
+                            RateFrom::Previous {
+                                from_epoch: then.epoch,
+                                dt_days,
+                            },
+                        )
+                    })
                 }
                 _ => None,
             }
@@ -764,6 +783,72 @@ mod tests {
         let e = apply(&s, &rules, &mut st, &one(120.0, Some(3.0), day(2.0)));
         assert_eq!(kinds(&e), [(AlertEventKind::Cleared, 1, 0)]);
         assert!((e.events[0].evidence["value"].as_f64().expect("rate") - 10.0).abs() < 1e-9);
+    }
+
+    #[test]
+    fn a_rate_is_formed_only_from_values_measured_from_the_same_thing() {
+        let s = structure(2);
+        let rules = [rule(json!({
+            "name": "tension rate",
+            "quantity": "strain_rate",
+            "rate_of": "principal_tensile",
+            "unit": "microstrain",
+            "levels": [{"name": "fast", "threshold": 20}]
+        }))];
+        let from = |mut a: Analysis, b: Option<f64>| {
+            a.baseline_epoch = b.map(day);
+            a
+        };
+        // Increments (`previous_epoch`): each value is the change since the epoch
+        // before, so the rate is the value over the time, not a difference of values:
+        // 50 µε in 2 days = 25 µε/day (a difference would give (50 − 40)/2 = 5).
+        let mut st = Vec::new();
+        apply(
+            &s,
+            &rules,
+            &mut st,
+            &from(one(40.0, Some(2.0), day(2.0)), Some(0.0)),
+        );
+        let e = apply(
+            &s,
+            &rules,
+            &mut st,
+            &from(one(50.0, Some(2.0), day(4.0)), Some(2.0)),
+        );
+        assert_eq!(kinds(&e), [(AlertEventKind::Raised, 0, 1)]);
+        let ev = &e.events[0].evidence;
+        assert!(
+            (ev["value"].as_f64().expect("rate") - 25.0).abs() < 1e-9,
+            "{ev}"
+        );
+        assert!((ev["sd"].as_f64().expect("sd") - 1.0).abs() < 1e-9, "{ev}");
+        // Measured from different things (the reference coordinates, then a baseline
+        // epoch that is not the previous one): no rate, and no change of level.
+        let mut st = Vec::new();
+        apply(
+            &s,
+            &rules,
+            &mut st,
+            &from(one(100.0, Some(2.0), day(0.0)), None),
+        );
+        let e = apply(
+            &s,
+            &rules,
+            &mut st,
+            &from(one(300.0, Some(2.0), day(2.0)), Some(-5.0)),
+        );
+        assert!(e.events.is_empty(), "{:?}", e.events);
+        assert_eq!(e.states[0].data["value"], Value::Null);
+        // … but the next one measured like the last forms its rate again:
+        // (340 − 300) / 1 day = 40 µε/day.
+        let e = apply(
+            &s,
+            &rules,
+            &mut st,
+            &from(one(340.0, Some(2.0), day(3.0)), Some(-5.0)),
+        );
+        assert_eq!(kinds(&e), [(AlertEventKind::Raised, 0, 1)]);
+        assert!((e.events[0].evidence["value"].as_f64().expect("rate") - 40.0).abs() < 1e-9);
     }
 
     #[test]

@@ -308,7 +308,8 @@ pub async fn get_subscription(
     find(&state, &caller, &raw).await.map(axum::Json)
 }
 
-/// Delete a subscription with its deliveries and their log; nothing more is sent to it.
+/// Delete a subscription with its deliveries and their log; nothing more is sent to it
+/// (except, at most, an attempt already in progress).
 #[utoipa::path(delete, path = "/v1/webhooks/{webhook_id}", tag = "webhooks",
     params(("webhook_id" = Uuid, Path, description = "The subscription's ID")),
     security(("api_key" = [])),

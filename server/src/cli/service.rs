@@ -132,8 +132,8 @@ pub struct ServeArgs {
         hide_short_help = true
     )]
     pub job_fault_pause_ms: u64,
-    /// Seconds one attempt of a job may compute before it counts as failed (and is
-    /// retried).
+    /// Seconds one attempt of a job may compute; a longer one is stored as a failed
+    /// analysis (not retried).
     #[arg(long, env = "KINEMA_JOB_TIMEOUT_SECS", default_value_t = JobSettings::default().timeout.as_secs())]
     pub job_timeout_secs: u64,
     /// Destinations webhooks may reach: comma-separated CIDR blocks allowed on purpose
@@ -159,7 +159,7 @@ pub struct ServeArgs {
     /// Seconds one delivery attempt may take (connect, send, answer).
     #[arg(long, env = "KINEMA_WEBHOOK_TIMEOUT_SECS", default_value_t = WebhookSettings::default().timeout.as_secs())]
     pub webhook_timeout_secs: u64,
-    /// Seconds a delivery loop holds a subscription (at least twice the timeout).
+    /// Seconds a delivery loop holds a subscription (at least twice the timeout plus 1 s).
     #[arg(long, env = "KINEMA_WEBHOOK_LEASE_SECS", default_value_t = WebhookSettings::default().lease.as_secs())]
     pub webhook_lease_secs: u64,
     /// Deliveries of one subscription taken per claim.

@@ -11,7 +11,7 @@ use super::request::{AnalysisInput, Times};
 use crate::analysis::AnalysisError;
 use crate::analysis::epoch::{Displacement, EpochRequest, run_epoch};
 use crate::analysis::series::{MAX_SERIES_EPOCHS, SeriesAnalysisRequest, SeriesEpoch, run_series};
-use crate::model::{Analysis, AnalysisKind, AnalysisStatus, Reading, Structure, now_utc};
+use crate::model::{Analysis, AnalysisKind, AnalysisStatus, Reading, now_utc};
 use crate::store::{DynStore, StoreError};
 
 /// Why an attempt could not produce an analysis; the job is tried again.
@@ -39,9 +39,14 @@ fn displacements(readings: Vec<Reading>) -> Vec<Displacement> {
         .collect()
 }
 
-/// A failed analysis of `input` with `error` (parameters that do not fit the data,
-/// epochs without readings, …).
-fn failed(s: &Structure, input: &AnalysisInput, times: Option<Times>, error: String) -> Analysis {
+/// A failed analysis of `input` of structure `structure_id` with `error` (parameters
+/// that do not fit the data, epochs without readings, a computation over its time, …).
+pub fn failed(
+    structure_id: &str,
+    input: &AnalysisInput,
+    times: Option<Times>,
+    error: String,
+) -> Analysis {
     let (kind, epoch, baseline, first, last) = match times {
         Some(Times::Epoch(e, b)) => (AnalysisKind::Epoch, Some(e), b, None, None),
         Some(Times::Series(f, t, b)) => (AnalysisKind::Series, None, b, f, t),
@@ -52,7 +57,7 @@ fn failed(s: &Structure, input: &AnalysisInput, times: Option<Times>, error: Str
     };
     Analysis {
         id: Uuid::new_v4(),
-        structure_id: s.id.clone(),
+        structure_id: structure_id.to_owned(),
         kind,
         status: AnalysisStatus::Failed,
         method: input.method_name().to_owned(),
@@ -108,7 +113,7 @@ pub async fn execute(
         Ok(t) => t,
         Err(e) => {
             return Ok(failed(
-                &s,
+                &s.id,
                 input,
                 None,
                 format!("{}: {}", e.pointer, e.detail),
@@ -150,7 +155,7 @@ pub async fn execute(
             },
             Times::Series(from, to, baseline),
         ) => match series_epochs(store, structure_id, from, to, baseline).await? {
-            Err(m) => return Ok(failed(&s, input, Some(times), m)),
+            Err(m) => return Ok(failed(&s.id, input, Some(times), m)),
             Ok((baseline_epoch, epochs)) => {
                 let req = SeriesAnalysisRequest {
                     from,
@@ -171,7 +176,7 @@ pub async fn execute(
         // A bug, not the data: the attempt is retried (and the job fails when it keeps
         // happening).
         Err(AnalysisError::Internal(m)) => Err(ExecError::Task(m)),
-        Err(e) => Ok(failed(&s, input, Some(times), describe(e))),
+        Err(e) => Ok(failed(&s.id, input, Some(times), describe(e))),
     }
 }
 

@@ -80,10 +80,17 @@ async fn attempt(state: &AppState, settings: &JobSettings, job: &Job) -> JobOutc
             return JobOutcome::Analysis(Box::new(a));
         }
         Ok(Err(e)) => e.to_string(),
-        Err(_) => format!(
-            "the attempt took longer than {} s (KINEMA_JOB_TIMEOUT_SECS)",
-            settings.timeout.as_secs()
-        ),
+        // The same data would take as long again: a failed analysis, not a retry. (The
+        // computation cannot be interrupted; its thread finishes and its result is
+        // dropped.)
+        Err(_) => {
+            let error = format!(
+                "the computation took longer than {} s (KINEMA_JOB_TIMEOUT_SECS)",
+                settings.timeout.as_secs()
+            );
+            let a = super::execute::failed(&job.structure_id, &input, input.times().ok(), error);
+            return JobOutcome::Analysis(Box::new(a));
+        }
     };
     JobOutcome::Error {
         error,

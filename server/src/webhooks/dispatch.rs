@@ -34,7 +34,7 @@ use crate::store::{DynStore, Store, StoreError};
 const MAX_ERROR_WAIT: Duration = Duration::from_secs(30);
 
 /// Slack kept between the end of the last attempt and the end of the claim.
-const LEASE_MARGIN: Duration = Duration::from_secs(1);
+pub(crate) const LEASE_MARGIN: Duration = Duration::from_secs(1);
 
 /// Run one dispatcher until `shutdown` is cancelled: claim due deliveries as `worker`
 /// (a name unique among all dispatchers on the database, e.g. from [`worker_name`]),

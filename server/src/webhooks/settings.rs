@@ -19,7 +19,7 @@ pub struct WebhookSettings {
     /// `KINEMA_WEBHOOK_MAX_ATTEMPTS`, default 8.
     pub max_attempts: u32,
     /// Ceiling of the wait after the first failed attempt; doubled after each further
-    /// one, see [`super::backoff`]. `KINEMA_WEBHOOK_RETRY_BASE_MS`, default 10 000 ms.
+    /// one, see [`crate::backoff`]. `KINEMA_WEBHOOK_RETRY_BASE_MS`, default 10 000 ms.
     pub retry_base: Duration,
     /// Largest ceiling of the wait between attempts. `KINEMA_WEBHOOK_RETRY_MAX_SECS`,
     /// default 3600 s.
@@ -29,7 +29,7 @@ pub struct WebhookSettings {
     pub timeout: Duration,
     /// How long a dispatcher's claim on a subscription lasts; no attempt is started
     /// that could outlast it, and a dispatcher that died loses its claim when it
-    /// expires. At least twice [`WebhookSettings::timeout`]. `KINEMA_WEBHOOK_LEASE_SECS`,
+    /// expires. At least twice [`WebhookSettings::timeout`] plus 1 s. `KINEMA_WEBHOOK_LEASE_SECS`,
     /// default 120 s.
     pub lease: Duration,
     /// Most deliveries of one subscription taken per claim. `KINEMA_WEBHOOK_BATCH`,
@@ -99,10 +99,10 @@ impl WebhookSettings {
         if self.timeout.is_zero() {
             return err("KINEMA_WEBHOOK_TIMEOUT_SECS", "must be positive");
         }
-        if self.lease < self.timeout * 2 {
+        if self.lease < self.timeout * 2 + super::dispatch::LEASE_MARGIN {
             return err(
                 "KINEMA_WEBHOOK_LEASE_SECS",
-                "must be at least twice KINEMA_WEBHOOK_TIMEOUT_SECS",
+                "must be at least twice KINEMA_WEBHOOK_TIMEOUT_SECS plus 1 s",
             );
         }
         if self.batch == 0 {
@@ -179,10 +179,19 @@ mod tests {
             let e = s.validate().expect_err(name);
             assert_eq!(e.setting, name);
         }
+        // The lease must leave room for a whole attempt after the margin: 2 × 10 s + 1 s.
         let ok = WebhookSettings {
+            lease: Duration::from_secs(21),
+            ..d.clone()
+        };
+        assert_eq!(ok.validate(), Ok(()));
+        let short = WebhookSettings {
             lease: Duration::from_secs(20),
             ..d
         };
-        assert_eq!(ok.validate(), Ok(()));
+        assert_eq!(
+            short.validate().map_err(|e| e.setting),
+            Err("KINEMA_WEBHOOK_LEASE_SECS")
+        );
     }
 }

@@ -106,7 +106,7 @@ pub fn verify(
     let digits = header
         .strip_prefix("sha256=")
         .ok_or(VerifyError::Malformed)?;
-    if digits.len() != 64 {
+    if digits.len() != 64 || !digits.bytes().all(|b| b.is_ascii_hexdigit()) {
         return Err(VerifyError::Malformed);
     }
     let mut expected = [0u8; 32];
@@ -218,11 +218,7 @@ print('sha256='+hmac.new(k,m,hashlib.sha256).hexdigest())";
             .output()
         {
             Ok(o) => o,
-            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
-                eprintln!("SKIPPED the_header_matches_python_hmac: python3 is not installed");
-                return;
-            }
-            Err(e) => panic!("running python3: {e}"),
+            Err(e) => panic!("running python3 (the outside reference of this test): {e}"),
         };
         assert!(
             out.status.success(),
