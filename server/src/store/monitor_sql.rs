@@ -282,9 +282,24 @@ macro_rules! monitor_sql {
             now: OffsetDateTime,
             lease_until: OffsetDateTime,
         ) -> Result<Option<(Job, Lease)>, StoreError> {
+            // A plain read first: an idle worker's poll opens no write transaction (on
+            // SQLite that would take the one write lock from batch writers).
+            let any: Option<(Uuid,)> = sqlx::query_as(
+                "SELECT id FROM jobs WHERE (status = 'queued' AND run_after <= $1) \
+                 OR (status = 'running' AND lease_expires_at < $1) LIMIT 1",
+            )
+            .bind(db_time(now))
+            .fetch_optional(&store.pool)
+            .await?;
+            if any.is_none() {
+                return Ok(None);
+            }
             for _ in 0..CLAIM_ROUNDS {
                 let mut tx = store.write_tx().await?;
                 let Some(id) = next_claimable(&mut tx, now).await? else {
+                    // Ended at once: a dropped transaction would keep its lock until its
+                    // connection is used again.
+                    tx.rollback().await?;
                     return Ok(None);
                 };
                 let mut job = reload_job(&mut tx, id).await?;
