@@ -23,14 +23,13 @@ use kinema_core::significance::chi2_critical;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 use time::OffsetDateTime;
-use time::format_description::well_known::Rfc3339;
 use uuid::Uuid;
 
 use super::quantity::{Measured, Region, ResultView, convert};
 use super::rule::{Quantity, RegionScope, RuleDefinition};
 use crate::model::{
     AlertEventKind, AlertRuleRecord, AlertState, Analysis, AnalysisKind, AnalysisStatus,
-    Evaluation, NewAlertEvent, Structure,
+    Evaluation, NewAlertEvent, Structure, rfc3339,
 };
 use crate::units::StrainUnit;
 
@@ -102,10 +101,6 @@ impl StateData {
     fn to_json(&self) -> Value {
         serde_json::to_value(self).unwrap_or(Value::Null)
     }
-}
-
-fn rfc(t: OffsetDateTime) -> String {
-    t.format(&Rfc3339).unwrap_or_default()
 }
 
 /// A rule ready to be applied.
@@ -503,7 +498,7 @@ impl Evidence<'_> {
                 dt_days,
             }) => json!({
                 "from": "the previous evaluated value: (v - v_prev) / dt_days, sd = sqrt(sd^2 + sd_prev^2) / dt_days",
-                "from_epoch": rfc(*from_epoch),
+                "from_epoch": rfc3339(*from_epoch),
                 "dt_days": dt_days,
             }),
             Some(RateFrom::Series) => json!({
@@ -538,7 +533,7 @@ impl Evidence<'_> {
             "hysteresis": def.hysteresis,
             "significance": significance,
             "rate": rate,
-            "epoch": rfc(self.epoch),
+            "epoch": rfc3339(self.epoch),
             "analysis_id": self.analysis.id,
             "analysis_kind": self.analysis.kind.as_str(),
             "method": self.analysis.method,

@@ -252,10 +252,7 @@ pub fn run_epoch(
     let present: std::collections::HashSet<&str> =
         ep.points.iter().map(|p| p.id.as_str()).collect();
     let (method, reduced) = restrict(&req.method, &present, usize::from(structure.dimension));
-    let rfc = |t: time::OffsetDateTime| {
-        t.format(&time::format_description::well_known::Rfc3339)
-            .unwrap_or_default()
-    };
+    let rfc = crate::model::rfc3339;
     let inputs = serde_json::json!({
         "points_in_structure": points.len(),
         "points_used": ep.points.len(),

@@ -21,7 +21,9 @@ use super::{AnalysisError, field, params};
 use crate::api::problem::FieldError;
 use crate::cli::analyze::{self, Method};
 use crate::input::{ElementRow, EpochSeries, GroupRows};
-use crate::model::{Analysis, AnalysisKind, AnalysisStatus, StoredPoint, Structure, now_utc};
+use crate::model::{
+    Analysis, AnalysisKind, AnalysisStatus, StoredPoint, Structure, now_utc, rfc3339,
+};
 use crate::output::JsonSink;
 use crate::pipeline::series::{self as pipeline_series, RegionRows};
 use crate::units::StrainUnit;
@@ -69,11 +71,6 @@ pub struct EpochUse {
     pub left_out: Vec<String>,
 }
 
-fn rfc(t: OffsetDateTime) -> String {
-    t.format(&time::format_description::well_known::Rfc3339)
-        .unwrap_or_default()
-}
-
 /// Check the method (elements or groups only, every member a point of the structure)
 /// and the options; every bad field with its pointer.
 pub fn validate(
@@ -107,7 +104,7 @@ fn epoch_d<const D: usize>(
         .iter()
         .map(|r| (r.point_id.as_str(), r))
         .collect();
-    let label = rfc(e.epoch);
+    let label = rfc3339(e.epoch);
     let mut pts = Vec::with_capacity(e.readings.len());
     let mut left_out = Vec::new();
     for p in points {
@@ -210,13 +207,13 @@ pub fn run_series(
     let label = format!(
         "structure {} series {} to {}, baseline {}",
         structure.id,
-        rfc(first),
-        rfc(last),
-        rfc(req.baseline_epoch)
+        rfc3339(first),
+        rfc3339(last),
+        rfc3339(req.baseline_epoch)
     );
     let mut a = analyze::default_args(&label)?;
     a.series = true;
-    a.baseline = Some(rfc(req.baseline_epoch));
+    a.baseline = Some(rfc3339(req.baseline_epoch));
     a.length_unit = structure.length_unit;
     a.strain_unit = req.strain_unit;
     a.quiet = true;
@@ -290,9 +287,9 @@ pub fn run_series(
     };
     let inputs = serde_json::json!({
         "points_in_structure": points.len(),
-        "from": req.from.map(rfc),
-        "to": req.to.map(rfc),
-        "baseline_epoch": rfc(req.baseline_epoch),
+        "from": req.from.map(rfc3339),
+        "to": req.to.map(rfc3339),
+        "baseline_epoch": rfc3339(req.baseline_epoch),
         "epochs_used": epochs.len(),
         "epochs": uses,
     });

@@ -430,10 +430,7 @@ pub async fn keys(cmd: &KeysCommand) -> Result<(), ServiceError> {
             let store = db.open_migrated().await?;
             println!("id\tprefix\tscope\tstructures\tcreated_at\trevoked_at\tlabel");
             for k in store.list_keys().await? {
-                let fmt = |t: time::OffsetDateTime| {
-                    t.format(&time::format_description::well_known::Rfc3339)
-                        .unwrap_or_default()
-                };
+                let fmt = crate::model::rfc3339;
                 println!(
                     "{}\t{}\t{}\t{}\t{}\t{}\t{}",
                     k.id,

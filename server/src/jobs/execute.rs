@@ -224,8 +224,7 @@ async fn series_epochs(
         if readings.is_empty() {
             return Ok(Err(format!(
                 "epoch {} has no readings",
-                t.format(&time::format_description::well_known::Rfc3339)
-                    .unwrap_or_default()
+                crate::model::rfc3339(t)
             )));
         }
         epochs.push(SeriesEpoch { epoch: t, readings });

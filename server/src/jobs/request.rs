@@ -10,7 +10,7 @@ use crate::analysis::params::{FieldOptions, MethodSpec};
 use crate::analysis::series::MAX_SERIES_EPOCHS;
 use crate::api::problem::{ApiError, FieldError};
 use crate::ingest::validate::parse_epoch;
-use crate::model::Structure;
+use crate::model::{Structure, rfc3339};
 use crate::store::DynStore;
 use crate::units::StrainUnit;
 
@@ -146,11 +146,6 @@ impl AnalysisInput {
     }
 }
 
-fn rfc(t: OffsetDateTime) -> String {
-    t.format(&time::format_description::well_known::Rfc3339)
-        .unwrap_or_default()
-}
-
 async fn epoch_exists(
     store: &DynStore,
     id: &str,
@@ -162,7 +157,7 @@ async fn epoch_exists(
             pointer,
             format!(
                 "structure {id} has no readings at {}; see GET /v1/structures/{id}/epochs",
-                rfc(t)
+                rfc3339(t)
             ),
         ));
     }
@@ -301,8 +296,8 @@ impl AutoAnalysis {
                     }
                 };
                 AnalysisInput::Epoch {
-                    epoch: rfc(e),
-                    baseline_epoch: baseline.map(rfc),
+                    epoch: rfc3339(e),
+                    baseline_epoch: baseline.map(rfc3339),
                     method: self.method.clone(),
                     options: self.options.clone(),
                     strain_unit: self.strain_unit,
@@ -347,7 +342,7 @@ mod tests {
         let d4 = datetime!(2026-04-01 00:00 UTC);
         let batch = [d4, d3, d4];
         let stored = [d2, d1];
-        let s = |t: OffsetDateTime| rfc(t);
+        let s = |t: OffsetDateTime| rfc3339(t);
         assert_eq!(
             baselines(&auto(AutoBaseline::Reference).plan(&batch, &stored)),
             vec![(s(d3), None), (s(d4), None)]
@@ -377,7 +372,10 @@ mod tests {
         let batch: Vec<OffsetDateTime> = (0..150).map(|h| t0 + time::Duration::hours(h)).collect();
         let plan = auto(AutoBaseline::Reference).plan(&batch, &[]);
         assert_eq!(plan.len(), MAX_AUTO_JOBS_PER_BATCH);
-        assert_eq!(baselines(&plan)[0].0, rfc(t0 + time::Duration::hours(50)));
+        assert_eq!(
+            baselines(&plan)[0].0,
+            rfc3339(t0 + time::Duration::hours(50))
+        );
     }
 
     #[test]

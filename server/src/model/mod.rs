@@ -394,6 +394,13 @@ pub fn now_utc() -> OffsetDateTime {
     truncate_to_micros(OffsetDateTime::now_utc())
 }
 
+/// `t` as RFC 3339 text (`2026-11-30T06:00:00Z`; empty in the impossible case that it
+/// cannot be formatted), as the API writes times.
+pub fn rfc3339(t: OffsetDateTime) -> String {
+    t.format(&time::format_description::well_known::Rfc3339)
+        .unwrap_or_default()
+}
+
 /// `t` without its sub-microsecond part.
 pub fn truncate_to_micros(t: OffsetDateTime) -> OffsetDateTime {
     let micros = t.nanosecond() / 1000 * 1000;

@@ -12,7 +12,7 @@ use utoipa::ToSchema;
 use uuid::Uuid;
 
 use super::alerts::{AlertEvent, AlertEventKind};
-use super::{Analysis, AnalysisStatus, Job};
+use super::{Analysis, AnalysisStatus, Job, rfc3339};
 
 /// The kinds of event a subscription can receive.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize, ToSchema)]
@@ -91,11 +91,6 @@ pub struct NewEvent {
     pub occurred_at: OffsetDateTime,
     /// The body sent: the JSON envelope `{id, type, occurred_at, structure_id, data}`.
     pub body: serde_json::Value,
-}
-
-fn rfc3339(t: OffsetDateTime) -> String {
-    t.format(&time::format_description::well_known::Rfc3339)
-        .unwrap_or_default()
 }
 
 impl NewEvent {

@@ -444,9 +444,7 @@ impl BatchTally {
 
 /// The conflict for a reading of `point` at `epoch` that is stored already.
 pub fn duplicate(point: &str, epoch: OffsetDateTime) -> StoreError {
-    let t = epoch
-        .format(&time::format_description::well_known::Rfc3339)
-        .unwrap_or_else(|_| epoch.to_string());
+    let t = crate::model::rfc3339(epoch);
     StoreError::Conflict(format!(
         "a reading of point {point} at epoch {t} is already stored; readings are unique per point and epoch"
     ))
