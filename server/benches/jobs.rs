@@ -4,20 +4,19 @@
 //! analyses computed and stored directly (`jobs::execute::execute` +
 //! `Store::insert_analysis`, what the API did before analyses were jobs). The queued
 //! side enqueues the N jobs and drains them with 1 and with 2 concurrent workers
-//! (`jobs::worker::run_once`: claim with a lease, renewal task, compute,
+//! (`jobs::worker::drain`, claim by claim: claim with a lease, renewal task, compute,
 //! `complete_job` with alert evaluation and the outbox — no rules, no subscriptions).
 //! Reports analyses/s of each and the ratio to the baseline.
 //!
 //! Run: `cargo bench -p kinema-server --bench jobs` (`KINEMA_BENCH_JOBS`, default 200;
 //! `KINEMA_BENCH_ONLY=postgres|sqlite`).
 
-use std::sync::Arc;
 use std::time::Instant;
 
 use kinema_server::api::{AppState, Limits};
 use kinema_server::jobs::execute::execute;
 use kinema_server::jobs::request::AnalysisInput;
-use kinema_server::jobs::worker::run_once;
+use kinema_server::jobs::worker::drain;
 use kinema_server::model::{Frame, JobOrigin, NewJob, StoredPoint, Structure, now_utc};
 use kinema_server::store::{self, BatchMeta, DynStore, NewReading};
 use kinema_server::units::LengthUnit;
@@ -123,22 +122,13 @@ async fn queued(state: &AppState, n: usize, workers: usize) -> f64 {
             .await
             .expect("enqueue");
     }
-    let settings = Arc::new(state.settings.jobs.clone());
     let tasks: Vec<_> = (0..workers)
         .map(|k| {
             let state = state.clone();
-            let settings = settings.clone();
             tokio::spawn(async move {
-                let name = format!("bench-{k}");
-                let mut done = 0usize;
-                while run_once(&state, &settings, &name)
+                drain(&state, &format!("bench-{k}"))
                     .await
-                    .expect("run a job")
-                    .is_some()
-                {
-                    done += 1;
-                }
-                done
+                    .expect("run the jobs")
             })
         })
         .collect();

@@ -45,6 +45,51 @@ impl Default for JobSettings {
     }
 }
 
+/// A setting out of its range.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("{setting}: {detail}")]
+pub struct SettingsError {
+    /// The variable's name.
+    pub setting: &'static str,
+    /// What is wrong.
+    pub detail: String,
+}
+
+impl JobSettings {
+    /// Check the ranges (call at start-up): a lease of at least 100 ms, at least one
+    /// attempt, positive back-off, poll and time limit, `retry_max ≥ retry_base`.
+    pub fn validate(&self) -> Result<(), SettingsError> {
+        let err = |setting, detail: &str| {
+            Err(SettingsError {
+                setting,
+                detail: detail.to_owned(),
+            })
+        };
+        if self.lease < Duration::from_millis(100) {
+            return err("KINEMA_JOB_LEASE_MS", "must be at least 100");
+        }
+        if self.max_attempts == 0 {
+            return err("KINEMA_JOB_MAX_ATTEMPTS", "must be at least 1");
+        }
+        if self.retry_base.is_zero() {
+            return err("KINEMA_JOB_RETRY_BASE_MS", "must be positive");
+        }
+        if self.retry_max < self.retry_base {
+            return err(
+                "KINEMA_JOB_RETRY_MAX_MS",
+                "must not be shorter than KINEMA_JOB_RETRY_BASE_MS",
+            );
+        }
+        if self.poll.is_zero() {
+            return err("KINEMA_JOB_POLL_MS", "must be positive");
+        }
+        if self.timeout.is_zero() {
+            return err("KINEMA_JOB_TIMEOUT_SECS", "must be positive");
+        }
+        Ok(())
+    }
+}
+
 /// Every setting of the monitoring loop.
 #[derive(Debug, Clone, Default)]
 pub struct Settings {
@@ -52,4 +97,62 @@ pub struct Settings {
     pub jobs: JobSettings,
     /// Webhook delivery.
     pub webhooks: crate::webhooks::WebhookSettings,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn job_defaults_are_valid_and_bad_ranges_name_their_variable() {
+        let d = JobSettings::default();
+        assert_eq!(d.validate(), Ok(()));
+        let bad = [
+            (
+                JobSettings {
+                    lease: Duration::from_millis(99),
+                    ..d.clone()
+                },
+                "KINEMA_JOB_LEASE_MS",
+            ),
+            (
+                JobSettings {
+                    max_attempts: 0,
+                    ..d.clone()
+                },
+                "KINEMA_JOB_MAX_ATTEMPTS",
+            ),
+            (
+                JobSettings {
+                    retry_base: Duration::ZERO,
+                    ..d.clone()
+                },
+                "KINEMA_JOB_RETRY_BASE_MS",
+            ),
+            (
+                JobSettings {
+                    retry_max: Duration::from_secs(1),
+                    ..d.clone()
+                },
+                "KINEMA_JOB_RETRY_MAX_MS",
+            ),
+            (
+                JobSettings {
+                    poll: Duration::ZERO,
+                    ..d.clone()
+                },
+                "KINEMA_JOB_POLL_MS",
+            ),
+            (
+                JobSettings {
+                    timeout: Duration::ZERO,
+                    ..d.clone()
+                },
+                "KINEMA_JOB_TIMEOUT_SECS",
+            ),
+        ];
+        for (s, name) in bad {
+            assert_eq!(s.validate().map_err(|e| e.setting), Err(name));
+        }
+    }
 }

@@ -16,7 +16,7 @@
 use axum::body::Body;
 use axum::http::{HeaderMap, Method, Request, StatusCode, header};
 use kinema_server::api::{AppState, Limits, app};
-use kinema_server::jobs::worker::run_once;
+use kinema_server::jobs::worker::drain as drain_jobs;
 use kinema_server::keys::new_key;
 use kinema_server::model::Scope;
 use kinema_server::store::{self, DynStore};
@@ -158,12 +158,9 @@ impl std::ops::Deref for Svc {
 
 /// Run every queued job (as the workers of `kinema serve` do).
 async fn drain(svc: &Svc) {
-    let settings = std::sync::Arc::new(svc.state.settings.jobs.clone());
-    while run_once(&svc.state, &settings, "test-worker")
+    drain_jobs(&svc.state, "test-worker")
         .await
-        .expect("run a job")
-        .is_some()
-    {}
+        .expect("run the jobs");
 }
 
 /// POST an analysis: a request error as it is answered, or — once it is queued (202,

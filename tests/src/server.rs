@@ -124,6 +124,21 @@ pub fn create_key(database_url: &str, scope: &str, structures: &[&str]) -> Key {
     Key { id, token }
 }
 
+/// Poll `done` every 50 ms until it gives a value, at most `limit`.
+///
+/// # Panics
+/// When `limit` passes first (naming `what` was waited for).
+pub fn wait_for<T>(limit: Duration, what: &str, mut done: impl FnMut() -> Option<T>) -> T {
+    let deadline = Instant::now() + limit;
+    loop {
+        if let Some(v) = done() {
+            return v;
+        }
+        assert!(Instant::now() < deadline, "timed out waiting for {what}");
+        std::thread::sleep(Duration::from_millis(50));
+    }
+}
+
 /// A database for one end-to-end case: an SQLite file in a temporary folder or a fresh
 /// PostgreSQL schema; removed when dropped.
 #[derive(Debug)]

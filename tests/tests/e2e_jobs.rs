@@ -8,11 +8,11 @@
 //! mechanics).
 
 use std::collections::{BTreeMap, BTreeSet};
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
 use kinema_tests::e2e;
 use kinema_tests::http::Request;
-use kinema_tests::server::{Server, TestDb, create_key};
+use kinema_tests::server::{Server, TestDb, create_key, wait_for};
 use serde_json::{Value, json};
 
 e2e!(a_killed_worker_loses_its_job_to_another_after_the_lease);
@@ -85,18 +85,6 @@ fn job(server: &Server, token: &str, id: &str, job: &str) -> Value {
         server.send(&Request::new("GET", &format!("/v1/structures/{id}/jobs/{job}")).bearer(token));
     assert_eq!(r.status, 200, "{}", r.text());
     r.json()
-}
-
-/// Poll until `done(job)` holds, at most `limit`.
-fn wait_for(limit: Duration, what: &str, mut done: impl FnMut() -> Option<Value>) -> Value {
-    let deadline = Instant::now() + limit;
-    loop {
-        if let Some(v) = done() {
-            return v;
-        }
-        assert!(Instant::now() < deadline, "timed out waiting for {what}");
-        std::thread::sleep(Duration::from_millis(50));
-    }
 }
 
 /// Every analysis of structure `id` (all pages).

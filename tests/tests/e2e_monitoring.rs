@@ -17,12 +17,12 @@ use std::collections::BTreeMap;
 use std::io::{BufRead, BufReader, Read, Write};
 use std::net::TcpListener;
 use std::sync::{Arc, Mutex};
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
 use kinema_tests::e2e;
 use kinema_tests::http::Request;
 use kinema_tests::python_json;
-use kinema_tests::server::{Server, TestDb, create_key};
+use kinema_tests::server::{Server, TestDb, create_key, wait_for};
 use serde_json::{Value, json};
 
 e2e!(a_batch_raises_and_clears_alerts_and_the_receiver_hears_of_it);
@@ -106,17 +106,6 @@ const XS: [[f64; 2]; 5] = [[0.0, 0.0], [12.0, 0.0], [0.0, 6.0], [12.0, 6.0], [6.
 fn ok(r: &kinema_tests::http::Response, status: u16) -> Value {
     assert_eq!(r.status, status, "{}", r.text());
     r.json()
-}
-
-fn wait_for<T>(limit: Duration, what: &str, mut done: impl FnMut() -> Option<T>) -> T {
-    let deadline = Instant::now() + limit;
-    loop {
-        if let Some(v) = done() {
-            return v;
-        }
-        assert!(Instant::now() < deadline, "timed out waiting for {what}");
-        std::thread::sleep(Duration::from_millis(50));
-    }
 }
 
 fn a_batch_raises_and_clears_alerts_and_the_receiver_hears_of_it(db: &TestDb) {

@@ -275,15 +275,18 @@ async fn auto_jobs(
     epochs: &std::collections::BTreeSet<OffsetDateTime>,
 ) -> Result<Vec<NewJob>, ApiError> {
     let batch: Vec<_> = epochs.iter().copied().collect();
-    // The stored epochs a baseline of `first_epoch` or `previous_epoch` may be (the
-    // batch's own are not visible yet): the first, and the latest before each epoch the
-    // plan analyses (indexed lookups, not a scan of the history).
+    // The stored epochs a baseline may be (the batch's own are not visible yet): the
+    // first for `first_epoch`, the latest before each epoch the plan analyses for
+    // `previous_epoch` (indexed lookups, not a scan of the history).
     let mut stored = Vec::new();
-    if auto.baseline != AutoBaseline::Reference {
-        let skip = batch.len().saturating_sub(MAX_AUTO_JOBS_PER_BATCH);
-        for &e in &batch[skip..] {
-            let (first, before) = state.store.epoch_neighbours(id, e).await?;
-            stored.extend(first.into_iter().chain(before));
+    match auto.baseline {
+        AutoBaseline::Reference => {}
+        AutoBaseline::FirstEpoch => stored.extend(state.store.first_epoch(id).await?),
+        AutoBaseline::PreviousEpoch => {
+            let skip = batch.len().saturating_sub(MAX_AUTO_JOBS_PER_BATCH);
+            for &e in &batch[skip..] {
+                stored.extend(state.store.epoch_before(id, e).await?);
+            }
         }
     }
     let created_at = now_utc();

@@ -13,7 +13,7 @@ use tokio_util::sync::CancellationToken;
 
 use crate::keys;
 use crate::model::{Scope, id_problem};
-use crate::settings::{JobSettings, Settings};
+use crate::settings::{JobSettings, Settings, SettingsError};
 use crate::store::{self, DynStore, StoreError, redact_url};
 use crate::webhooks::WebhookSettings;
 use crate::webhooks::policy::AllowList;
@@ -202,33 +202,21 @@ impl ServeArgs {
 
     /// The settings of the monitoring loop these flags set.
     pub fn settings(&self) -> Result<Settings, ServiceError> {
-        let positive = |name: &str, v: u64| {
-            if v == 0 {
-                Err(ServiceError::Usage(format!("--{name} must be at least 1")))
-            } else {
-                Ok(())
-            }
-        };
-        if self.job_lease_ms < 100 {
-            return Err(ServiceError::Usage(
-                "--job-lease-ms must be at least 100".into(),
-            ));
-        }
-        positive("job-timeout-secs", self.job_timeout_secs)?;
-        positive("job-max-attempts", u64::from(self.job_max_attempts))?;
-        positive("job-retry-base-ms", self.job_retry_base_ms)?;
-        positive("job-retry-max-ms", self.job_retry_max_ms)?;
-        positive("job-poll-ms", self.job_poll_ms)?;
+        let usage = |e: SettingsError| ServiceError::Usage(e.to_string());
         Ok(Settings {
-            jobs: JobSettings {
-                workers: self.job_workers,
-                lease: Duration::from_millis(self.job_lease_ms),
-                max_attempts: self.job_max_attempts,
-                retry_base: Duration::from_millis(self.job_retry_base_ms),
-                retry_max: Duration::from_millis(self.job_retry_max_ms),
-                poll: Duration::from_millis(self.job_poll_ms),
-                fault_pause: Duration::from_millis(self.job_fault_pause_ms),
-                timeout: Duration::from_secs(self.job_timeout_secs),
+            jobs: {
+                let j = JobSettings {
+                    workers: self.job_workers,
+                    lease: Duration::from_millis(self.job_lease_ms),
+                    max_attempts: self.job_max_attempts,
+                    retry_base: Duration::from_millis(self.job_retry_base_ms),
+                    retry_max: Duration::from_millis(self.job_retry_max_ms),
+                    poll: Duration::from_millis(self.job_poll_ms),
+                    fault_pause: Duration::from_millis(self.job_fault_pause_ms),
+                    timeout: Duration::from_secs(self.job_timeout_secs),
+                };
+                j.validate().map_err(usage)?;
+                j
             },
             webhooks: {
                 let w = WebhookSettings {
@@ -242,8 +230,7 @@ impl ServeArgs {
                     batch: self.webhook_batch,
                     poll: Duration::from_millis(self.webhook_poll_ms),
                 };
-                w.validate()
-                    .map_err(|e| ServiceError::Usage(e.to_string()))?;
+                w.validate().map_err(usage)?;
                 w
             },
         })

@@ -7,10 +7,10 @@
 use time::OffsetDateTime;
 use uuid::Uuid;
 
-use super::request::{AnalysisInput, Times};
+use super::request::{AnalysisInput, Times, series_times};
 use crate::analysis::AnalysisError;
 use crate::analysis::epoch::{Displacement, EpochRequest, run_epoch};
-use crate::analysis::series::{MAX_SERIES_EPOCHS, SeriesAnalysisRequest, SeriesEpoch, run_series};
+use crate::analysis::series::{SeriesAnalysisRequest, SeriesEpoch, run_series};
 use crate::model::{Analysis, AnalysisKind, AnalysisStatus, Reading, now_utc};
 use crate::store::{DynStore, StoreError};
 
@@ -189,35 +189,10 @@ async fn series_epochs(
     to: Option<OffsetDateTime>,
     baseline: Option<OffsetDateTime>,
 ) -> Result<Result<(OffsetDateTime, Vec<SeriesEpoch>), String>, ExecError> {
-    let mut times: Vec<OffsetDateTime> = store
-        .list_epochs(id, from, to)
-        .await?
-        .into_iter()
-        .map(|e| e.epoch)
-        .collect();
-    let baseline = match baseline {
-        Some(b) => {
-            if !times.contains(&b) {
-                times.push(b);
-                times.sort_unstable();
-            }
-            b
-        }
-        None => match times.first() {
-            Some(t) => *t,
-            None => {
-                return Ok(Err(
-                    "the structure has no epoch with readings in the range".into()
-                ));
-            }
-        },
+    let (baseline, times) = match series_times(store, id, from, to, baseline).await? {
+        Ok(t) => t,
+        Err(m) => return Ok(Err(m)),
     };
-    if times.len() < 2 || times.len() > MAX_SERIES_EPOCHS {
-        return Ok(Err(format!(
-            "a series needs 2 to {MAX_SERIES_EPOCHS} epochs with readings; the range (with the baseline) has {}",
-            times.len()
-        )));
-    }
     let mut epochs = Vec::with_capacity(times.len());
     for t in times {
         let readings = displacements(store.readings_at(id, t).await?);

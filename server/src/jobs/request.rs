@@ -203,28 +203,62 @@ pub async fn check(store: &DynStore, s: &Structure, input: &AnalysisInput) -> Re
             if !errs.is_empty() {
                 return Err(ApiError::fields(errs));
             }
-            let mut n = store.list_epochs(&s.id, from, to).await?.len();
             if let Some(b) = baseline {
                 epoch_exists(store, &s.id, b, "/baseline_epoch").await?;
-                let inside = from.is_none_or(|f| b >= f) && to.is_none_or(|t| b <= t);
-                if !inside {
-                    n += 1;
-                }
             }
-            if !(2..=MAX_SERIES_EPOCHS).contains(&n) {
-                return Err(ApiError::field(
-                    "/from",
-                    format!(
-                        "a series needs 2 to {MAX_SERIES_EPOCHS} epochs with readings; the range (with the baseline) has {n}"
-                    ),
-                ));
-            }
-            Ok(())
+            series_times(store, &s.id, from, to, baseline)
+                .await?
+                .map(|_| ())
+                .map_err(|m| ApiError::field("/from", m))
         }
         _ => Err(ApiError::Internal(
             "times of another kind of analysis".into(),
         )),
     }
+}
+
+/// The epochs of a series: those with readings in `[from, to]`, plus the baseline when
+/// it lies outside the range, oldest first, and the baseline (default: the first).
+/// The inner `Err` says why they cannot make a series (none, or not 2 to
+/// [`MAX_SERIES_EPOCHS`]): checked before the job is queued and again when it runs.
+///
+/// # Errors
+/// Store errors.
+pub async fn series_times(
+    store: &DynStore,
+    id: &str,
+    from: Option<OffsetDateTime>,
+    to: Option<OffsetDateTime>,
+    baseline: Option<OffsetDateTime>,
+) -> Result<Result<(OffsetDateTime, Vec<OffsetDateTime>), String>, crate::store::StoreError> {
+    let mut times: Vec<OffsetDateTime> = store
+        .list_epochs(id, from, to)
+        .await?
+        .into_iter()
+        .map(|e| e.epoch)
+        .collect();
+    let baseline = match (baseline, times.first()) {
+        (Some(b), _) => {
+            if !times.contains(&b) {
+                times.push(b);
+                times.sort_unstable();
+            }
+            b
+        }
+        (None, Some(&first)) => first,
+        (None, None) => {
+            return Ok(Err(
+                "the structure has no epoch with readings in the range".into()
+            ));
+        }
+    };
+    if !(2..=MAX_SERIES_EPOCHS).contains(&times.len()) {
+        return Ok(Err(format!(
+            "a series needs 2 to {MAX_SERIES_EPOCHS} epochs with readings; the range (with the baseline) has {}",
+            times.len()
+        )));
+    }
+    Ok(Ok((baseline, times)))
 }
 
 /// Which baseline the automatic analysis of an epoch uses.

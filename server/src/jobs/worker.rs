@@ -5,7 +5,6 @@
 //! transaction. A worker that dies stops renewing; its job is claimed again once the
 //! lease has expired, and only the claim that is current can store a result.
 
-use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use time::OffsetDateTime;
@@ -31,12 +30,8 @@ fn retry_at(settings: &JobSettings, attempt: u32, now: OffsetDateTime) -> Offset
 }
 
 /// Renew `lease` every third of the lease time until `stop` is cancelled.
-async fn keep_lease(
-    state: AppState,
-    lease: Lease,
-    settings: Arc<JobSettings>,
-    stop: CancellationToken,
-) {
+async fn keep_lease(state: AppState, lease: Lease, stop: CancellationToken) {
+    let settings = &state.settings.jobs;
     let every = (settings.lease / 3).max(Duration::from_millis(10));
     loop {
         tokio::select! {
@@ -55,7 +50,8 @@ async fn keep_lease(
     }
 }
 
-async fn attempt(state: &AppState, settings: &JobSettings, job: &Job) -> JobOutcome {
+async fn attempt(state: &AppState, job: &Job) -> JobOutcome {
+    let settings = &state.settings.jobs;
     if !settings.fault_pause.is_zero() {
         tokio::time::sleep(settings.fault_pause).await;
     }
@@ -107,10 +103,10 @@ const COMPLETE_TRIES: u32 = 4;
 /// while the lease is kept; when it persists, the attempt is ended as an error.
 async fn complete(
     state: &AppState,
-    settings: &JobSettings,
     lease: &Lease,
     outcome: JobOutcome,
 ) -> Result<Completed, StoreError> {
+    let settings = &state.settings.jobs;
     let mut outcome = outcome;
     let mut tries = 0;
     loop {
@@ -151,11 +147,8 @@ async fn complete(
 /// Store errors of the claim or of the completion (a lost lease is
 /// [`StoreError::Conflict`]: another worker has the job and this attempt's result is
 /// dropped).
-pub async fn run_once(
-    state: &AppState,
-    settings: &Arc<JobSettings>,
-    worker: &str,
-) -> Result<Option<Completed>, StoreError> {
+pub async fn run_once(state: &AppState, worker: &str) -> Result<Option<Completed>, StoreError> {
+    let settings = &state.settings.jobs;
     let now = now_utc();
     let Some((job, lease)) = state
         .store
@@ -168,16 +161,11 @@ pub async fn run_once(
     let stop = CancellationToken::new();
     // The keeper stops with this function, however it ends (also when it is dropped).
     let _stop_keeper = stop.clone().drop_guard();
-    tokio::spawn(keep_lease(
-        state.clone(),
-        lease.clone(),
-        settings.clone(),
-        stop.clone(),
-    ));
+    tokio::spawn(keep_lease(state.clone(), lease.clone(), stop.clone()));
     // The attempt runs in a task of its own: a panic is an error outcome.
     let outcome = {
-        let (st, se, j) = (state.clone(), settings.clone(), job.clone());
-        match tokio::spawn(async move { attempt(&st, &se, &j).await }).await {
+        let (st, j) = (state.clone(), job.clone());
+        match tokio::spawn(async move { attempt(&st, &j).await }).await {
             Ok(o) => o,
             Err(e) => JobOutcome::Error {
                 error: format!("the attempt panicked: {e}"),
@@ -185,7 +173,7 @@ pub async fn run_once(
             },
         }
     };
-    let done = complete(state, settings, &lease, outcome).await?;
+    let done = complete(state, &lease, outcome).await?;
     tracing::info!(job = %job.id, status = done.job.status.as_str(), alerts = done.alert_events.len(), deliveries = done.deliveries, "job ended");
     Ok(Some(done))
 }
@@ -193,17 +181,12 @@ pub async fn run_once(
 /// Run jobs as `worker` until `shutdown`: claim and run while there are claimable
 /// jobs, then wait for [`JobSettings::poll`] or a wake-up from this process
 /// ([`AppState::wake`]).
-pub async fn run(
-    state: AppState,
-    settings: Arc<JobSettings>,
-    worker: String,
-    shutdown: CancellationToken,
-) {
+pub async fn run(state: AppState, worker: String, shutdown: CancellationToken) {
     loop {
         if shutdown.is_cancelled() {
             return;
         }
-        let idle = match run_once(&state, &settings, &worker).await {
+        let idle = match run_once(&state, &worker).await {
             Ok(Some(_)) => false,
             Ok(None) => true,
             Err(StoreError::Conflict(m)) => {
@@ -219,7 +202,7 @@ pub async fn run(
             tokio::select! {
                 () = shutdown.cancelled() => return,
                 () = state.wake.notified() => {}
-                () = tokio::time::sleep(settings.poll) => {}
+                () = tokio::time::sleep(state.settings.jobs.poll) => {}
             }
         }
     }
@@ -228,18 +211,30 @@ pub async fn run(
 /// Start [`JobSettings::workers`] workers named `<process>/<n>`; they stop when
 /// `shutdown` is cancelled (a job in progress is finished first).
 pub fn spawn(state: &AppState, shutdown: &CancellationToken) -> Vec<JoinHandle<()>> {
-    let settings = Arc::new(state.settings.jobs.clone());
     let process = crate::worker_id::process_name();
-    (0..settings.workers)
+    (0..state.settings.jobs.workers)
         .map(|n| {
             tokio::spawn(run(
                 state.clone(),
-                settings.clone(),
                 format!("{process}/{n}"),
                 shutdown.clone(),
             ))
         })
         .collect()
+}
+
+/// Run claimable jobs as `worker` until none is left (what a worker does between two
+/// idle polls), and return how many attempts ran: for tests and benchmarks that run
+/// the queue in process.
+///
+/// # Errors
+/// As [`run_once`].
+pub async fn drain(state: &AppState, worker: &str) -> Result<usize, StoreError> {
+    let mut n = 0;
+    while run_once(state, worker).await?.is_some() {
+        n += 1;
+    }
+    Ok(n)
 }
 
 #[cfg(test)]

@@ -244,14 +244,17 @@ pub trait Store: Send + Sync + 'static {
         to: Option<OffsetDateTime>,
     ) -> Result<Vec<EpochSummary>, StoreError>;
 
-    /// The first epoch of a structure with readings, and the latest epoch with readings
-    /// before `before` (each `None` when there is none): two indexed lookups, not a
-    /// scan of the structure's history.
-    async fn epoch_neighbours(
+    /// The first epoch of a structure with readings (`None` when there is none, or no
+    /// such structure): an indexed lookup, not a scan of the history.
+    async fn first_epoch(&self, structure: &str) -> Result<Option<OffsetDateTime>, StoreError>;
+
+    /// The latest epoch of a structure with readings before `before` (`None` when there
+    /// is none): an indexed lookup, not a scan of the history.
+    async fn epoch_before(
         &self,
         structure: &str,
         before: OffsetDateTime,
-    ) -> Result<(Option<OffsetDateTime>, Option<OffsetDateTime>), StoreError>;
+    ) -> Result<Option<OffsetDateTime>, StoreError>;
 
     /// The readings of a structure at one epoch, in point ID order (metres). Empty
     /// when there are none (or the structure does not exist).

@@ -462,12 +462,19 @@ macro_rules! impl_store {
                     batches::list_epochs(&self.pool, structure, from, to).await
                 }
 
-                async fn epoch_neighbours(
+                async fn first_epoch(
+                    &self,
+                    structure: &str,
+                ) -> Result<Option<OffsetDateTime>, StoreError> {
+                    batches::first_epoch(&self.pool, structure).await
+                }
+
+                async fn epoch_before(
                     &self,
                     structure: &str,
                     before: OffsetDateTime,
-                ) -> Result<(Option<OffsetDateTime>, Option<OffsetDateTime>), StoreError> {
-                    batches::epoch_neighbours(&self.pool, structure, before).await
+                ) -> Result<Option<OffsetDateTime>, StoreError> {
+                    batches::epoch_before(&self.pool, structure, before).await
                 }
 
                 async fn readings_at(
@@ -809,32 +816,51 @@ pub(crate) use analyses_sql;
 /// PostgreSQL (whose default collation follows the locale).
 macro_rules! batch_reads_sql {
     (pool = $Pool:ty, time = $Time:ty, id_order = $id_order:literal $(,)?) => {
-        pub(super) async fn epoch_neighbours(
+        /// One epoch bound over the readings' primary key (structure_key, epoch, …):
+        /// an indexed lookup, not a scan. `sql` selects `MIN`/`MAX(r.epoch)` with `$1` the
+        /// structure ID and `$2` (if used) a time.
+        async fn epoch_bound(
+            pool: &$Pool,
+            sql: &'static str,
+            structure: &str,
+            t: Option<OffsetDateTime>,
+        ) -> Result<Option<OffsetDateTime>, StoreError> {
+            use $crate::store::rows::DbTime;
+            let mut q = sqlx::query_as::<_, (Option<$Time>,)>(sql).bind(structure);
+            if let Some(t) = t {
+                q = q.bind(<$Time as DbTime>::from_time(t));
+            }
+            let (found,) = q.fetch_one(pool).await?;
+            found.map(DbTime::into_time).transpose()
+        }
+
+        pub(super) async fn first_epoch(
+            pool: &$Pool,
+            structure: &str,
+        ) -> Result<Option<OffsetDateTime>, StoreError> {
+            epoch_bound(
+                pool,
+                "SELECT MIN(r.epoch) FROM readings r JOIN structures s ON s.key = r.structure_key \
+                 WHERE s.id = $1",
+                structure,
+                None,
+            )
+            .await
+        }
+
+        pub(super) async fn epoch_before(
             pool: &$Pool,
             structure: &str,
             before: OffsetDateTime,
-        ) -> Result<(Option<OffsetDateTime>, Option<OffsetDateTime>), StoreError> {
-            use $crate::store::rows::DbTime;
-            // Both are MIN/MAX over the readings' primary key (structure_key, epoch, …).
-            let (first,): (Option<$Time>,) = sqlx::query_as(
-                "SELECT MIN(r.epoch) FROM readings r JOIN structures s ON s.key = r.structure_key \
-                 WHERE s.id = $1",
-            )
-            .bind(structure)
-            .fetch_one(pool)
-            .await?;
-            let (prev,): (Option<$Time>,) = sqlx::query_as(
+        ) -> Result<Option<OffsetDateTime>, StoreError> {
+            epoch_bound(
+                pool,
                 "SELECT MAX(r.epoch) FROM readings r JOIN structures s ON s.key = r.structure_key \
                  WHERE s.id = $1 AND r.epoch < $2",
+                structure,
+                Some(before),
             )
-            .bind(structure)
-            .bind(<$Time as DbTime>::from_time(before))
-            .fetch_one(pool)
-            .await?;
-            Ok((
-                first.map(DbTime::into_time).transpose()?,
-                prev.map(DbTime::into_time).transpose()?,
-            ))
+            .await
         }
 
         pub(super) async fn get_batch(

@@ -5,6 +5,7 @@ use std::time::Duration;
 
 use super::policy::AllowList;
 use crate::backoff::Backoff;
+pub use crate::settings::SettingsError;
 
 /// How this process delivers webhooks.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -54,16 +55,6 @@ impl Default for WebhookSettings {
             poll: Duration::from_secs(1),
         }
     }
-}
-
-/// A setting out of its range.
-#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
-#[error("{setting}: {detail}")]
-pub struct SettingsError {
-    /// The variable's name.
-    pub setting: &'static str,
-    /// What is wrong.
-    pub detail: String,
 }
 
 impl WebhookSettings {

@@ -163,16 +163,9 @@ impl App {
     /// Run every claimable job to its end, as the workers of `kinema serve` do; returns
     /// how many attempts ran.
     pub async fn drain(&self) -> usize {
-        let settings = std::sync::Arc::new(self.state.settings.jobs.clone());
-        let mut n = 0;
-        while kinema_server::jobs::worker::run_once(&self.state, &settings, "test-worker")
+        kinema_server::jobs::worker::drain(&self.state, "test-worker")
             .await
-            .expect("run a job")
-            .is_some()
-        {
-            n += 1;
-        }
-        n
+            .expect("run the jobs")
     }
 
     /// A new API key; returns its token.

@@ -16,7 +16,7 @@ crate::contract!(
     batches_page_by_received_at_and_id,
     delete_structure_removes_batches_and_readings,
     three_d_readings_keep_uz_and_sigma_z,
-    epoch_neighbours_are_the_first_and_the_latest_before,
+    epoch_bounds_are_the_first_and_the_latest_before,
 );
 
 const T1: OffsetDateTime = datetime!(2026-11-30 06:00:00.000001 UTC);
@@ -373,11 +373,11 @@ async fn three_d_readings_keep_uz_and_sigma_z(store: DynStore) {
     assert_eq!(r[0].sigma.as_deref(), Some(&[0.001, 0.002, 0.003][..]));
 }
 
-async fn epoch_neighbours_are_the_first_and_the_latest_before(store: DynStore) {
+async fn epoch_bounds_are_the_first_and_the_latest_before(store: DynStore) {
     setup(&store, "W9").await;
     let t3 = datetime!(2026-12-01 00:00:00 UTC);
-    let none = store.epoch_neighbours("W9", t3).await.expect("empty");
-    assert_eq!(none, (None, None));
+    assert_eq!(store.first_epoch("W9").await.expect("empty"), None);
+    assert_eq!(store.epoch_before("W9", t3).await.expect("empty"), None);
     write(
         &store,
         "W9",
@@ -390,16 +390,11 @@ async fn epoch_neighbours_are_the_first_and_the_latest_before(store: DynStore) {
     )
     .await
     .expect("batch");
-    let n = |t| store.epoch_neighbours("W9", t);
-    assert_eq!(n(t3).await.expect("t3"), (Some(T1), Some(T2)));
-    assert_eq!(n(T2).await.expect("T2"), (Some(T1), Some(T1)));
-    assert_eq!(
-        n(T1).await.expect("T1"),
-        (Some(T1), None),
-        "strictly before"
-    );
-    assert_eq!(
-        store.epoch_neighbours("NOPE", t3).await.expect("unknown"),
-        (None, None)
-    );
+    assert_eq!(store.first_epoch("W9").await.expect("first"), Some(T1));
+    let before = |t| store.epoch_before("W9", t);
+    assert_eq!(before(t3).await.expect("t3"), Some(T2));
+    assert_eq!(before(T2).await.expect("T2"), Some(T1));
+    assert_eq!(before(T1).await.expect("T1"), None, "strictly before");
+    assert_eq!(store.first_epoch("NOPE").await.expect("unknown"), None);
+    assert_eq!(store.epoch_before("NOPE", t3).await.expect("unknown"), None);
 }
