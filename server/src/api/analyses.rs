@@ -15,7 +15,7 @@ use uuid::Uuid;
 use super::AppState;
 use super::auth::Caller;
 use super::extract::{ApiJson, ApiQuery};
-use super::page::{Page, PageQuery};
+use super::page::{Page, PageQuery, time_id_key};
 use super::problem::{ApiError, Problem};
 use crate::analysis::export;
 use crate::jobs::request::{AnalysisInput, check};
@@ -156,16 +156,7 @@ pub async fn list_analyses(
         limit: f.limit,
     };
     let limit = page.limit()?;
-    let after: Option<(i128, Uuid)> = page.after()?;
-    let after = after
-        .map(|(ns, id)| {
-            OffsetDateTime::from_unix_timestamp_nanos(ns)
-                .map(|t| (t, id))
-                .map_err(|_| {
-                    ApiError::field("/cursor", "the cursor is not one this service issued")
-                })
-        })
-        .transpose()?;
+    let after = page.after_time_id()?;
     if let (Some(a), Some(b)) = (f.from, f.to)
         && a >= b
     {
@@ -184,9 +175,7 @@ pub async fn list_analyses(
             },
         )
         .await?;
-    let next_cursor = Page::from_overfetch(&mut items, limit, |a| {
-        (a.created_at.unix_timestamp_nanos(), a.id)
-    });
+    let next_cursor = Page::from_overfetch(&mut items, limit, |a| time_id_key(a.created_at, a.id));
     Ok(axum::Json(AnalysisPage { items, next_cursor }))
 }
 

@@ -3,7 +3,6 @@
 
 use axum::extract::{Path, State};
 use serde::{Deserialize, Serialize};
-use time::OffsetDateTime;
 use utoipa::{IntoParams, ToSchema};
 use utoipa_axum::router::OpenApiRouter;
 use utoipa_axum::routes;
@@ -12,7 +11,7 @@ use uuid::Uuid;
 use super::AppState;
 use super::auth::Caller;
 use super::extract::ApiQuery;
-use super::page::{Page, PageQuery};
+use super::page::{Page, PageQuery, time_id_key};
 use super::problem::{ApiError, Problem};
 use crate::model::{Job, JobQuery, JobStatus, Scope};
 
@@ -68,16 +67,7 @@ pub async fn list_jobs(
         limit: f.limit,
     };
     let limit = page.limit()?;
-    let after: Option<(i128, Uuid)> = page.after()?;
-    let after = after
-        .map(|(ns, id)| {
-            OffsetDateTime::from_unix_timestamp_nanos(ns)
-                .map(|t| (t, id))
-                .map_err(|_| {
-                    ApiError::field("/cursor", "the cursor is not one this service issued")
-                })
-        })
-        .transpose()?;
+    let after = page.after_time_id()?;
     let mut items = state
         .store
         .list_jobs(
@@ -89,9 +79,7 @@ pub async fn list_jobs(
             },
         )
         .await?;
-    let next_cursor = Page::from_overfetch(&mut items, limit, |j| {
-        (j.created_at.unix_timestamp_nanos(), j.id)
-    });
+    let next_cursor = Page::from_overfetch(&mut items, limit, |j| time_id_key(j.created_at, j.id));
     Ok(axum::Json(JobPage { items, next_cursor }))
 }
 

@@ -43,6 +43,22 @@ impl PageQuery {
     pub fn after<K: DeserializeOwned>(&self) -> Result<Option<K>, ApiError> {
         self.cursor.as_deref().map(decode_cursor).transpose()
     }
+
+    /// The `(time, ID)` key after which the page starts, for lists ordered by a time
+    /// and then an ID (the cursor keeps the time as Unix nanoseconds, see
+    /// [`time_id_key`]).
+    pub fn after_time_id(&self) -> Result<Option<(time::OffsetDateTime, uuid::Uuid)>, ApiError> {
+        let after: Option<(i128, uuid::Uuid)> = self.after()?;
+        after
+            .map(|(ns, id)| {
+                time::OffsetDateTime::from_unix_timestamp_nanos(ns)
+                    .map(|t| (t, id))
+                    .map_err(|_| {
+                        ApiError::field("/cursor", "the cursor is not one this service issued")
+                    })
+            })
+            .transpose()
+    }
 }
 
 /// Encode a sort key as a cursor.
@@ -82,6 +98,12 @@ impl Page {
             None
         }
     }
+}
+
+/// The cursor key of an item in a list ordered by `(time, ID)` (read back by
+/// [`PageQuery::after_time_id`]).
+pub fn time_id_key(t: time::OffsetDateTime, id: uuid::Uuid) -> (i128, uuid::Uuid) {
+    (t.unix_timestamp_nanos(), id)
 }
 
 #[cfg(test)]
