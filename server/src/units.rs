@@ -85,12 +85,28 @@ impl StrainUnit {
         }
     }
 
+    /// A value in this unit as dimensionless strain (microstrain: a division by 10^6,
+    /// so that decimal values convert to the nearest double).
+    pub fn to_strain(self, v: f64) -> f64 {
+        match self {
+            Self::Strain => v,
+            Self::Microstrain => v / 1e6,
+        }
+    }
+
     /// Label: `"strain"` or `"microstrain"`.
     pub fn label(self) -> &'static str {
         match self {
             Self::Strain => "strain",
             Self::Microstrain => "microstrain",
         }
+    }
+
+    /// Parse [`StrainUnit::label`].
+    pub fn from_label(s: &str) -> Option<Self> {
+        [Self::Strain, Self::Microstrain]
+            .into_iter()
+            .find(|u| u.label() == s)
     }
 }
 

@@ -27,14 +27,13 @@ use uuid::Uuid;
 
 use super::quantity::{Measured, Region, ResultView, convert};
 use super::rule::{Quantity, RegionScope, RuleDefinition};
+use kinema_core::timeseries::SECONDS_PER_DAY;
+
 use crate::model::{
     AlertEventKind, AlertRuleRecord, AlertState, Analysis, AnalysisKind, AnalysisStatus,
     Evaluation, NewAlertEvent, Structure, rfc3339,
 };
 use crate::units::StrainUnit;
-
-/// Seconds in a day (86 400 s; rates are per day of 86 400 s).
-const DAY_S: f64 = 86_400.0;
 
 /// The two-sided standard-normal critical value `z_{1−α/2}`, from the χ² critical
 /// value with one degree of freedom: `Z² ~ χ²(1)`, so `P(|Z| > z) = P(χ²(1) > z²)`.
@@ -194,7 +193,8 @@ pub fn evaluate(
     now: OffsetDateTime,
 ) -> Evaluation {
     let mut out = Evaluation::default();
-    if analysis.status != AnalysisStatus::Succeeded {
+    // Nothing to read the result for (the store calls this inside its transaction).
+    if rules.is_empty() || analysis.status != AnalysisStatus::Succeeded {
         return out;
     }
     let Some(doc) = analysis.result.as_ref() else {
@@ -279,7 +279,7 @@ fn step(
         } else {
             match (&basis, earlier) {
                 (Some(now_b), Some(then)) if then.epoch < now_b.epoch => {
-                    let dt_days = (now_b.epoch - then.epoch).as_seconds_f64() / DAY_S;
+                    let dt_days = (now_b.epoch - then.epoch).as_seconds_f64() / SECONDS_PER_DAY;
                     // Measured from the same thing: the rate is the difference over the
                     // time; the later value being the change since the earlier epoch
                     // (a `previous_epoch` baseline): it is the increment itself.

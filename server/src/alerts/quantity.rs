@@ -30,15 +30,14 @@ use super::rule::Quantity;
 use crate::model::{Analysis, AnalysisKind};
 use crate::units::StrainUnit;
 
-/// `v` in unit `from` as a value in unit `to`: unchanged for the same unit, else one
-/// multiplication or division by 10^6 (a division, like
-/// [`crate::units::LengthUnit::to_metres`], so that decimal values convert to the
-/// nearest double).
+/// `v` in unit `from` as a value in unit `to`: unchanged for the same unit, else
+/// through dimensionless strain ([`StrainUnit::to_strain`], [`StrainUnit::from_strain`]:
+/// one multiplication or division by 10^6).
 pub fn convert(v: f64, from: StrainUnit, to: StrainUnit) -> f64 {
-    match (from, to) {
-        (StrainUnit::Strain, StrainUnit::Microstrain) => v * 1e6,
-        (StrainUnit::Microstrain, StrainUnit::Strain) => v / 1e6,
-        _ => v,
+    if from == to {
+        v
+    } else {
+        to.from_strain(from.to_strain(v))
     }
 }
 
@@ -361,9 +360,7 @@ impl<'a> ResultView<'a> {
     /// `None` when the document is not one this reads (no epoch, unknown strain unit).
     pub fn of(analysis: &Analysis, doc: &'a Value, dim: usize) -> Option<Self> {
         let unit_label = doc["strain_unit"].as_str()?;
-        let unit = [StrainUnit::Strain, StrainUnit::Microstrain]
-            .into_iter()
-            .find(|u| u.label() == unit_label)?;
+        let unit = StrainUnit::from_label(unit_label)?;
         let dim = doc["dimension"]
             .as_u64()
             .and_then(|d| usize::try_from(d).ok())

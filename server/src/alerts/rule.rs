@@ -467,16 +467,14 @@ fn validate_scope(
             ));
             continue;
         }
+        let at = format!("/scope/{name}");
         for (i, id) in list.iter().enumerate() {
-            let at = format!("/scope/{name}/{i}");
             if let Some(p) = id_problem(id) {
-                errs.push(FieldError::new(at, p));
-            } else if name == "points" && !is_point(id) {
-                errs.push(FieldError::new(
-                    at,
-                    format!("{id} is not a point of the structure"),
-                ));
+                errs.push(FieldError::new(format!("{at}/{i}"), p));
             }
+        }
+        if name == "points" {
+            crate::analysis::params::unknown_points(list, &at, is_point, errs);
         }
     }
 }
@@ -558,8 +556,9 @@ mod tests {
                 "/levels/0/threshold",
                 "/levels/1/name",
                 "/levels/2/threshold",
-                "/scope/points/1",
+                // The malformed ID first, then the well-formed one that is no point.
                 "/scope/points/2",
+                "/scope/points/1",
                 "/significance/alpha"
             ],
             "{e:?}"

@@ -115,6 +115,24 @@ fn ids_errors(ids: &[String], at: &str, errs: &mut Vec<FieldError>) {
     }
 }
 
+/// For each well-formed ID of `ids` (at pointer `{at}/{j}`) that `is_point` does not
+/// know: "… is not a point of the structure". Malformed IDs are left to the ID check.
+pub(crate) fn unknown_points(
+    ids: &[String],
+    at: &str,
+    is_point: &dyn Fn(&str) -> bool,
+    errs: &mut Vec<FieldError>,
+) {
+    for (j, id) in ids.iter().enumerate() {
+        if id_problem(id).is_none() && !is_point(id) {
+            errs.push(FieldError::new(
+                format!("{at}/{j}"),
+                format!("{id} is not a point of the structure"),
+            ));
+        }
+    }
+}
+
 /// [`validate`], and the method against the structure: every element vertex and group
 /// member is one of its `points`, an element has `dimension + 1` vertices, and Delaunay
 /// (a 2D triangulation) is not asked of a 3D structure. Every bad field is listed.
@@ -126,15 +144,9 @@ pub fn validate_for(
 ) -> Vec<FieldError> {
     let mut errs = validate(method, options);
     let known: std::collections::HashSet<&str> = points.iter().map(|p| p.id.as_str()).collect();
+    let is_point = |id: &str| known.contains(id);
     let unknown = |ids: &[String], at: String, errs: &mut Vec<FieldError>| {
-        for (j, id) in ids.iter().enumerate() {
-            if id_problem(id).is_none() && !known.contains(id.as_str()) {
-                errs.push(FieldError::new(
-                    format!("{at}/{j}"),
-                    format!("{id} is not a point of the structure"),
-                ));
-            }
-        }
+        unknown_points(ids, &at, &is_point, errs);
     };
     match method {
         MethodSpec::Elements { elements } => {

@@ -80,7 +80,7 @@ pub struct AlertRuleList {
 
 /// The rule ID from the path, or a 422 naming it.
 fn rule_id(raw: &str) -> Result<Uuid, ApiError> {
-    Uuid::parse_str(raw).map_err(|_| ApiError::field("/rule_id", format!("{raw:?} is not a UUID")))
+    super::extract::path_uuid("/rule_id", raw)
 }
 
 /// Validate `body` for structure `s` (point IDs of the scope must be its points) and

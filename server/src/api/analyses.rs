@@ -180,7 +180,7 @@ pub async fn list_analyses(
 }
 
 fn analysis_id(s: &str) -> Result<Uuid, ApiError> {
-    Uuid::parse_str(s).map_err(|_| ApiError::field("/analysis_id", "not a UUID"))
+    super::extract::path_uuid("/analysis_id", s)
 }
 
 async fn find(

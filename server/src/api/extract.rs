@@ -172,6 +172,13 @@ pub fn pointer_of(path: &serde_path_to_error::Path) -> String {
     out
 }
 
+/// A UUID from the path (`pointer` names the parameter, e.g. `/job_id`), or a 422
+/// naming it.
+pub fn path_uuid(pointer: &str, raw: &str) -> Result<uuid::Uuid, ApiError> {
+    uuid::Uuid::parse_str(raw)
+        .map_err(|_| ApiError::field(pointer, format!("{raw:?} is not a UUID")))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

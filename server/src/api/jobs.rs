@@ -6,7 +6,6 @@ use serde::{Deserialize, Serialize};
 use utoipa::{IntoParams, ToSchema};
 use utoipa_axum::router::OpenApiRouter;
 use utoipa_axum::routes;
-use uuid::Uuid;
 
 use super::AppState;
 use super::auth::Caller;
@@ -101,7 +100,7 @@ pub async fn get_job(
     Path((id, job)): Path<(String, String)>,
 ) -> Result<axum::Json<Job>, ApiError> {
     caller.structure(&state, Scope::Read, &id).await?;
-    let jid = Uuid::parse_str(&job).map_err(|_| ApiError::field("/job_id", "not a UUID"))?;
+    let jid = super::extract::path_uuid("/job_id", &job)?;
     state
         .store
         .get_job(jid)

@@ -131,7 +131,7 @@ pub async fn list_keys(
 
 /// The key's ID from the path, or a 422 naming it.
 fn key_id(raw: &str) -> Result<Uuid, ApiError> {
-    Uuid::parse_str(raw).map_err(|_| ApiError::field("/key_id", format!("{raw:?} is not a UUID")))
+    super::extract::path_uuid("/key_id", raw)
 }
 
 /// One key (never its token), revoked or not; the `Location` of a created key.

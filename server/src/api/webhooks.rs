@@ -123,10 +123,6 @@ fn visible(caller: &Caller, s: &Subscription) -> bool {
 }
 
 /// The ID from the path, or a 422 naming it.
-fn path_id(pointer: &str, raw: &str) -> Result<Uuid, ApiError> {
-    Uuid::parse_str(raw).map_err(|_| ApiError::field(pointer, format!("{raw:?} is not a UUID")))
-}
-
 fn no_subscription(id: Uuid) -> ApiError {
     ApiError::NotFound(format!("no webhook subscription has ID {id}"))
 }
@@ -134,7 +130,7 @@ fn no_subscription(id: Uuid) -> ApiError {
 /// The subscription `raw` if it exists and the caller may see it (admin scope).
 async fn find(state: &AppState, caller: &Caller, raw: &str) -> Result<Subscription, ApiError> {
     caller.require(Scope::Admin)?;
-    let id = path_id("/webhook_id", raw)?;
+    let id = super::extract::path_uuid("/webhook_id", raw)?;
     state
         .store
         .get_subscription(id)
@@ -390,7 +386,7 @@ pub async fn get_delivery(
     Path((raw, raw_delivery)): Path<(String, String)>,
 ) -> Result<axum::Json<DeliveryDetail>, ApiError> {
     let sub = find(&state, &caller, &raw).await?;
-    let id = path_id("/delivery_id", &raw_delivery)?;
+    let id = super::extract::path_uuid("/delivery_id", &raw_delivery)?;
     let (delivery, attempts) = state
         .store
         .get_delivery(sub.id, id)
@@ -423,7 +419,7 @@ pub async fn replay_delivery(
     Path((raw, raw_delivery)): Path<(String, String)>,
 ) -> Result<Response, ApiError> {
     let sub = find(&state, &caller, &raw).await?;
-    let id = path_id("/delivery_id", &raw_delivery)?;
+    let id = super::extract::path_uuid("/delivery_id", &raw_delivery)?;
     let delivery = state
         .store
         .replay_delivery(sub.id, id, now_utc())
