@@ -40,4 +40,15 @@ impl StoreError {
     pub fn is_unique_violation(&self) -> bool {
         matches!(self, Self::Database(sqlx::Error::Database(e)) if e.is_unique_violation())
     }
+
+    /// `e` as a [`StoreError::Conflict`] saying `what` when it is a unique-constraint
+    /// violation, else as it is.
+    pub fn unique_as_conflict(e: sqlx::Error, what: impl FnOnce() -> String) -> Self {
+        let e = Self::from(e);
+        if e.is_unique_violation() {
+            Self::Conflict(what())
+        } else {
+            e
+        }
+    }
 }

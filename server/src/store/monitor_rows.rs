@@ -198,7 +198,7 @@ pub struct SubscriptionRow<T> {
     pub id: Uuid,
     pub structure_id: Option<String>,
     pub url: String,
-    pub events: Json<Vec<String>>,
+    pub events: Json<Vec<EventType>>,
     pub description: String,
     pub secret: String,
     pub created_at: T,
@@ -220,12 +220,7 @@ impl<T: DbTime> SubscriptionRow<T> {
             id: self.id,
             structure_id: self.structure_id,
             url: self.url,
-            events: self
-                .events
-                .0
-                .iter()
-                .map(|e| event_type(e))
-                .collect::<Result<_, _>>()?,
+            events: self.events.0,
             description: self.description,
             secret: self.secret,
             created_at: self.created_at.into_time()?,

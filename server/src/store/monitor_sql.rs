@@ -12,6 +12,37 @@
 //! outbox): one delivery per subscription of the event's structure or of every
 //! structure whose event types contain the event's type.
 
+/// The oldest claimable job (`$1` = now): queued and due, or running with an expired
+/// lease; jobs queued by batches one at a time per structure, in the order they were
+/// queued. One text for the plain probe and the locking claim.
+macro_rules! claimable_job {
+    () => {
+        "SELECT j.id FROM jobs j WHERE ((j.status = 'queued' AND j.run_after <= $1) \
+         OR (j.status = 'running' AND j.lease_expires_at < $1)) \
+         AND (j.origin <> 'batch' OR NOT EXISTS (SELECT 1 FROM jobs o \
+              WHERE o.structure_key = j.structure_key AND o.origin = 'batch' \
+              AND o.status IN ('queued', 'running') \
+              AND (o.created_at < j.created_at \
+                   OR (o.created_at = j.created_at AND o.id < j.id)))) \
+         ORDER BY j.run_after, j.created_at, j.id LIMIT 1"
+    };
+}
+
+/// The subscription with the oldest due pending head and no live claim (`$1` = now).
+/// One text for the plain probe and the locking claim.
+macro_rules! dispatchable_subscription {
+    () => {
+        "SELECT w.id FROM webhook_subscriptions w \
+         WHERE (w.dispatch_until IS NULL OR w.dispatch_until < $1) \
+         AND (SELECT h.next_attempt_at FROM deliveries h WHERE h.subscription_id = w.id \
+              AND h.status = 'pending' ORDER BY h.seq LIMIT 1) <= $1 \
+         ORDER BY (SELECT h.seq FROM deliveries h WHERE h.subscription_id = w.id \
+              AND h.status = 'pending' ORDER BY h.seq LIMIT 1) LIMIT 1"
+    };
+}
+
+pub(crate) use {claimable_job, dispatchable_subscription};
+
 /// Jobs, automatic analysis, alerts and webhooks for one backend.
 macro_rules! monitor_sql {
     (
@@ -29,7 +60,7 @@ macro_rules! monitor_sql {
 
         use $crate::model::{
             AlertEvent, AlertEventQuery, AlertRuleRecord, AlertState, AnalysisStatus, Delivery,
-            DeliveryAttempt, DeliveryNext, DeliveryQuery, DispatchBatch, Evaluation, Job,
+            DeliveryAttempt, DeliveryNext, DeliveryQuery, DispatchBatch, Evaluation, EventType, Job,
             JobAttemptError, JobOutcome, JobQuery, JobStatus, Lease, NewAlertEvent, NewEvent,
             NewJob, Subscription, now_utc,
         };
@@ -39,7 +70,7 @@ macro_rules! monitor_sql {
             alert_state_columns, delivery_columns, dispatch_columns, int, job_columns,
             subscription_columns,
         };
-        use $crate::store::rows::DbTime;
+        use $crate::store::rows::{DbTime, StructureRow, structure_columns};
         use $crate::store::{Completed, Evaluator, StoreError, Written};
 
         /// The connection of an open transaction.
@@ -54,20 +85,7 @@ macro_rules! monitor_sql {
             <$Time as DbTime>::from_time(t)
         }
 
-        /// A `LIMIT` value.
-        fn limit(n: usize) -> i64 {
-            i64::try_from(n).unwrap_or(i64::MAX)
-        }
-
-        /// A unique violation as a conflict saying `what`, other errors as they are.
-        fn unique_as_conflict(e: sqlx::Error, what: impl FnOnce() -> String) -> StoreError {
-            let e = StoreError::from(e);
-            if e.is_unique_violation() {
-                StoreError::Conflict(what())
-            } else {
-                e
-            }
-        }
+        use $crate::store::rows::big as limit;
 
         /// The internal key of structure `id`, or [`StoreError::NotFound`].
         async fn structure_key(c: &mut Conn, id: &str) -> Result<i64, StoreError> {
@@ -113,7 +131,7 @@ macro_rules! monitor_sql {
                 .bind(Json(Vec::<JobAttemptError>::new()))
                 .execute(&mut *c)
                 .await
-                .map_err(|e| unique_as_conflict(e, || format!("job {} exists already", j.id)))?;
+                .map_err(|e| StoreError::unique_as_conflict(e, || format!("job {} exists already", j.id)))?;
             }
             Ok(())
         }
@@ -192,24 +210,25 @@ macro_rules! monitor_sql {
         /// Jobs queued by batches run one at a time per structure, in the order they
         /// were queued (`created_at`, then ID), so that the alert states of a structure
         /// follow its epochs in order; requested analyses run in any order.
-        async fn next_claimable(
-            c: &mut Conn,
+        /// `locked`: in a write transaction, locking the row (PostgreSQL skips rows
+        /// other claims hold); else a plain read (the idle poll's probe).
+        async fn next_claimable<'e, E>(
+            ex: E,
             now: OffsetDateTime,
-        ) -> Result<Option<Uuid>, StoreError> {
-            let found: Option<(Uuid,)> = sqlx::query_as(concat!(
-                "SELECT j.id FROM jobs j WHERE ((j.status = 'queued' AND j.run_after <= $1) \
-                 OR (j.status = 'running' AND j.lease_expires_at < $1)) \
-                 AND (j.origin <> 'batch' OR NOT EXISTS (SELECT 1 FROM jobs o \
-                      WHERE o.structure_key = j.structure_key AND o.origin = 'batch' \
-                      AND o.status IN ('queued', 'running') \
-                      AND (o.created_at < j.created_at \
-                           OR (o.created_at = j.created_at AND o.id < j.id)))) \
-                 ORDER BY j.run_after, j.created_at, j.id LIMIT 1",
-                $skip_locked
-            ))
-            .bind(db_time(now))
-            .fetch_optional(&mut *c)
-            .await?;
+            locked: bool,
+        ) -> Result<Option<Uuid>, StoreError>
+        where
+            E: sqlx::Executor<'e, Database = $Db>,
+        {
+            let sql = if locked {
+                concat!($crate::store::monitor_sql::claimable_job!(), $skip_locked)
+            } else {
+                $crate::store::monitor_sql::claimable_job!()
+            };
+            let found: Option<(Uuid,)> = sqlx::query_as(sql)
+                .bind(db_time(now))
+                .fetch_optional(ex)
+                .await?;
             Ok(found.map(|(id,)| id))
         }
 
@@ -228,6 +247,7 @@ macro_rules! monitor_sql {
         /// were queued.
         async fn exhaust(
             c: &mut Conn,
+            key: i64,
             job: &Job,
             now: OffsetDateTime,
         ) -> Result<(Job, u64), StoreError> {
@@ -242,7 +262,7 @@ macro_rules! monitor_sql {
             .await?;
             let failed = reload_job(c, job.id).await?;
             let event = NewEvent::for_exhausted_job(&failed, now);
-            let deliveries = record_events(c, &failed.structure_id, &[event], now).await?;
+            let deliveries = record_events(c, key, &[event], now).await?;
             Ok((failed, deliveries))
         }
 
@@ -284,21 +304,14 @@ macro_rules! monitor_sql {
         ) -> Result<Option<(Job, Lease)>, StoreError> {
             // A plain read first: an idle worker's poll opens no write transaction (on
             // SQLite that would take the one write lock from batch writers).
-            let any: Option<(Uuid,)> = sqlx::query_as(
-                "SELECT id FROM jobs WHERE (status = 'queued' AND run_after <= $1) \
-                 OR (status = 'running' AND lease_expires_at < $1) LIMIT 1",
-            )
-            .bind(db_time(now))
-            .fetch_optional(&store.pool)
-            .await?;
-            if any.is_none() {
+            if next_claimable(&store.pool, now, false).await?.is_none() {
                 return Ok(None);
             }
             for _ in 0..CLAIM_ROUNDS {
                 let mut tx = store.write_tx().await?;
-                let Some(id) = next_claimable(&mut tx, now).await? else {
-                    // Ended at once: a dropped transaction would keep its lock until its
-                    // connection is used again.
+                let Some(id) = next_claimable(&mut *tx, now, true).await? else {
+                    // Ended here: a dropped transaction is rolled back in the background,
+                    // keeping its locks a moment longer.
                     tx.rollback().await?;
                     return Ok(None);
                 };
@@ -312,7 +325,8 @@ macro_rules! monitor_sql {
                     });
                 }
                 if job.attempts >= job.max_attempts {
-                    exhaust(&mut tx, &job, now).await?;
+                    let key = structure_key(&mut tx, &job.structure_id).await?;
+                    exhaust(&mut tx, key, &job, now).await?;
                     tx.commit().await?;
                     continue;
                 }
@@ -378,41 +392,41 @@ macro_rules! monitor_sql {
             let mut tx = store.write_tx().await?;
             // Lock order: the structure row before the job row, as `delete_structure`
             // (whose cascade reaches the job) takes them; the other order could deadlock.
-            let owner: Option<(String,)> = sqlx::query_as(
-                "SELECT s.id FROM jobs j JOIN structures s ON s.key = j.structure_key \
-                 WHERE j.id = $1",
-            )
-            .bind(lease.job_id)
-            .fetch_optional(&mut *tx)
-            .await?;
-            let Some((structure_id,)) = owner else {
+            let owner: Option<(i64,)> =
+                sqlx::query_as("SELECT structure_key FROM jobs WHERE id = $1")
+                    .bind(lease.job_id)
+                    .fetch_optional(&mut *tx)
+                    .await?;
+            let Some((key,)) = owner else {
                 return Err(stale(lease));
             };
-            let r = end_attempt(&mut tx, &structure_id, lease, outcome, evaluate, now).await;
+            let r = end_attempt(&mut tx, key, lease, outcome, evaluate, now).await;
             settle(tx, r).await
         }
 
         async fn end_attempt(
             tx: &mut Conn,
-            structure_id: &str,
+            key: i64,
             lease: &Lease,
             outcome: &JobOutcome,
             evaluate: &Evaluator,
             now: OffsetDateTime,
         ) -> Result<Completed, StoreError> {
-            locked_structure(tx, structure_id).await?;
+            let structure = locked_structure(tx, key).await?;
             let job = leased_job(tx, lease).await?;
             match outcome {
-                JobOutcome::Analysis(a) => store_result(tx, &job, a, evaluate, now).await,
+                JobOutcome::Analysis(a) => {
+                    store_result(tx, key, &structure, &job, a, evaluate, now).await
+                }
                 JobOutcome::Error { error, retry_at } => {
-                    fail_attempt(tx, job, lease, error, *retry_at, now).await
+                    fail_attempt(tx, key, job, lease, error, *retry_at, now).await
                 }
             }
         }
 
         /// Commit when `r` is `Ok`, and roll back at once otherwise: a dropped sqlx
-        /// transaction rolls back only when its connection is next used, and keeps its
-        /// row locks (which `SKIP LOCKED` claims then skip) until then.
+        /// transaction is rolled back in the background, and keeps its row locks (which
+        /// `SKIP LOCKED` claims then skip) until then (seen as a flaky claim in tests).
         async fn settle<T>(
             tx: sqlx::Transaction<'static, $Db>,
             r: Result<T, StoreError>,
@@ -433,6 +447,7 @@ macro_rules! monitor_sql {
         /// its attempts.
         async fn fail_attempt(
             c: &mut Conn,
+            key: i64,
             mut job: Job,
             lease: &Lease,
             error: &str,
@@ -446,7 +461,7 @@ macro_rules! monitor_sql {
                 error: error.to_owned(),
             });
             let (job, deliveries) = if job.attempts >= job.max_attempts {
-                exhaust(c, &job, now).await?
+                exhaust(c, key, &job, now).await?
             } else {
                 set_errors(c, &job).await?;
                 sqlx::query(
@@ -468,8 +483,11 @@ macro_rules! monitor_sql {
 
         /// Store a job's analysis, end the job, evaluate the alert rules and record the
         /// events.
+        #[allow(clippy::too_many_arguments)]
         async fn store_result(
             c: &mut Conn,
+            key: i64,
+            structure: &$crate::model::Structure,
             job: &Job,
             a: &$crate::model::Analysis,
             evaluate: &Evaluator,
@@ -481,7 +499,6 @@ macro_rules! monitor_sql {
                     a.id, a.structure_id, job.id, job.structure_id
                 )));
             }
-            let structure = locked_structure(c, &job.structure_id).await?;
             super::analyses::insert_analysis(&mut *c, a).await?;
             let status = match a.status {
                 AnalysisStatus::Succeeded => JobStatus::Succeeded,
@@ -500,12 +517,13 @@ macro_rules! monitor_sql {
             let job = reload_job(c, job.id).await?;
             let rules = rules_of(&mut *c, &job.structure_id).await?;
             let states = states_of(&mut *c, &job.structure_id).await?;
-            let evaluation = evaluate(&structure, &rules, &states, a, now);
+            let evaluation = evaluate(structure, &rules, &states, a, now);
             let alert_events =
-                apply_evaluation(c, &job.structure_id, &rules, &evaluation, a.id, now).await?;
+                apply_evaluation(c, key, &job.structure_id, &rules, &evaluation, a.id, now)
+                    .await?;
             let mut events = vec![NewEvent::for_analysis(&job, a, now)];
             events.extend(alert_events.iter().filter_map(NewEvent::for_alert));
-            let deliveries = record_events(c, &job.structure_id, &events, now).await?;
+            let deliveries = record_events(c, key, &events, now).await?;
             Ok(Completed {
                 job,
                 alert_events,
@@ -513,23 +531,23 @@ macro_rules! monitor_sql {
             })
         }
 
-        /// Structure `id`, its row locked (PostgreSQL) so that evaluations of one
-        /// structure do not interleave.
+        /// The structure with internal key `key`, its row locked (PostgreSQL) so that
+        /// evaluations of one structure do not interleave.
         async fn locked_structure(
             c: &mut Conn,
-            id: &str,
+            key: i64,
         ) -> Result<$crate::model::Structure, StoreError> {
-            let found: Option<(i64,)> =
-                sqlx::query_as(concat!("SELECT key FROM structures WHERE id = $1", $lock))
-                    .bind(id)
-                    .fetch_optional(&mut *c)
-                    .await?;
-            if found.is_none() {
-                return Err(StoreError::NotFound(format!("structure {id} does not exist")));
-            }
-            super::common::get_structure(&mut *c, id).await?.ok_or_else(|| {
-                StoreError::corrupt(format!("structure {id} vanished inside its transaction"))
-            })
+            sqlx::query_as::<_, StructureRow<$Time>>(concat!(
+                "SELECT ",
+                structure_columns!(),
+                " FROM structures s WHERE s.key = $1",
+                $lock
+            ))
+            .bind(key)
+            .fetch_optional(&mut *c)
+            .await?
+            .ok_or_else(|| StoreError::NotFound(format!("structure key {key} does not exist")))?
+            .into_structure()
         }
 
         /// Refuse an evaluation that names a rule the structure does not have.
@@ -555,8 +573,10 @@ macro_rules! monitor_sql {
         }
 
         /// Write an evaluation's states and alert events (of analysis `analysis`).
+        #[allow(clippy::too_many_arguments)]
         async fn apply_evaluation(
             c: &mut Conn,
+            key: i64,
             structure: &str,
             rules: &[AlertRuleRecord],
             ev: &Evaluation,
@@ -567,7 +587,6 @@ macro_rules! monitor_sql {
             for s in &ev.states {
                 upsert_state(c, s).await?;
             }
-            let key = structure_key(c, structure).await?;
             let mut stored = Vec::with_capacity(ev.events.len());
             for e in &ev.events {
                 stored.push(insert_alert_event(c, key, structure, e, analysis, now).await?);
@@ -617,7 +636,7 @@ macro_rules! monitor_sql {
             .fetch_one(&mut *c)
             .await
             .map_err(|err| {
-                unique_as_conflict(err, || format!("alert event {} exists already", e.id))
+                StoreError::unique_as_conflict(err, || format!("alert event {} exists already", e.id))
             })?;
             Ok(AlertEvent {
                 id: e.id,
@@ -640,27 +659,26 @@ macro_rules! monitor_sql {
         /// at `now`) per matching subscription; returns how many deliveries were queued.
         async fn record_events(
             c: &mut Conn,
-            structure: &str,
+            key: i64,
             events: &[NewEvent],
             now: OffsetDateTime,
         ) -> Result<u64, StoreError> {
             if events.is_empty() {
                 return Ok(0);
             }
-            let subscribers: Vec<(Uuid, Json<Vec<String>>)> = sqlx::query_as(
+            let subscribers: Vec<(Uuid, Json<Vec<EventType>>)> = sqlx::query_as(
                 "SELECT w.id, w.events FROM webhook_subscriptions w WHERE w.structure_key IS NULL \
-                 OR w.structure_key = (SELECT key FROM structures WHERE id = $1) \
-                 ORDER BY w.created_at, w.id",
+                 OR w.structure_key = $1 ORDER BY w.created_at, w.id",
             )
-            .bind(structure)
+            .bind(key)
             .fetch_all(&mut *c)
             .await?;
             let mut queued = 0;
             for e in events {
-                insert_event(c, e).await?;
+                insert_event(c, key, e).await?;
                 let wanted = subscribers
                     .iter()
-                    .filter(|(_, types)| types.0.iter().any(|t| t == e.event_type.as_str()));
+                    .filter(|(_, types)| types.0.contains(&e.event_type));
                 for (subscription, _) in wanted {
                     insert_delivery(c, *subscription, e.id, now).await?;
                     queued += 1;
@@ -669,25 +687,19 @@ macro_rules! monitor_sql {
             Ok(queued)
         }
 
-        async fn insert_event(c: &mut Conn, e: &NewEvent) -> Result<(), StoreError> {
-            let done = sqlx::query(
+        async fn insert_event(c: &mut Conn, key: i64, e: &NewEvent) -> Result<(), StoreError> {
+            sqlx::query(
                 "INSERT INTO events (id, structure_key, type, occurred_at, body) \
-                 SELECT $1, s.key, $2, $3, $4 FROM structures s WHERE s.id = $5",
+                 VALUES ($1, $2, $3, $4, $5)",
             )
             .bind(e.id)
+            .bind(key)
             .bind(e.event_type.as_str())
             .bind(db_time(e.occurred_at))
             .bind(Json(&e.body))
-            .bind(&e.structure_id)
             .execute(&mut *c)
             .await
-            .map_err(|err| unique_as_conflict(err, || format!("event {} exists already", e.id)))?;
-            if done.rows_affected() == 0 {
-                return Err(StoreError::NotFound(format!(
-                    "structure {} does not exist",
-                    e.structure_id
-                )));
-            }
+            .map_err(|err| StoreError::unique_as_conflict(err, || format!("event {} exists already", e.id)))?;
             Ok(())
         }
 
@@ -805,7 +817,7 @@ macro_rules! monitor_sql {
                     .execute(&mut *tx)
                     .await
                     .map_err(|e| {
-                        unique_as_conflict(e, || {
+                        StoreError::unique_as_conflict(e, || {
                             format!("alert rule {} was created meanwhile", r.id)
                         })
                     })?;
@@ -958,7 +970,6 @@ macro_rules! monitor_sql {
                 Some(id) => Some(structure_key(&mut tx, id).await?),
                 None => None,
             };
-            let events: Vec<&str> = s.events.iter().map(|e| e.as_str()).collect();
             sqlx::query(
                 "INSERT INTO webhook_subscriptions (id, structure_key, url, events, description, \
                  secret, created_at) VALUES ($1, $2, $3, $4, $5, $6, $7)",
@@ -966,14 +977,14 @@ macro_rules! monitor_sql {
             .bind(s.id)
             .bind(key)
             .bind(&s.url)
-            .bind(Json(&events))
+            .bind(Json(&s.events))
             .bind(&s.description)
             .bind(&s.secret)
             .bind(db_time(s.created_at))
             .execute(&mut *tx)
             .await
             .map_err(|e| {
-                unique_as_conflict(e, || format!("subscription {} exists already", s.id))
+                StoreError::unique_as_conflict(e, || format!("subscription {} exists already", s.id))
             })?;
             tx.commit().await?;
             Ok(())
@@ -1136,22 +1147,24 @@ macro_rules! monitor_sql {
         /// The subscription whose head pending delivery (lowest `seq`) is due at `now` and
         /// that no dispatcher holds, oldest head first; locked (PostgreSQL skips the
         /// subscriptions other claims hold).
-        async fn next_dispatchable(
-            c: &mut Conn,
+        /// As [`next_claimable`], for subscriptions with due deliveries.
+        async fn next_dispatchable<'e, E>(
+            ex: E,
             now: OffsetDateTime,
-        ) -> Result<Option<Uuid>, StoreError> {
-            let found: Option<(Uuid,)> = sqlx::query_as(concat!(
-                "SELECT w.id FROM webhook_subscriptions w \
-                 WHERE (w.dispatch_until IS NULL OR w.dispatch_until < $1) \
-                 AND (SELECT h.next_attempt_at FROM deliveries h WHERE h.subscription_id = w.id \
-                      AND h.status = 'pending' ORDER BY h.seq LIMIT 1) <= $1 \
-                 ORDER BY (SELECT h.seq FROM deliveries h WHERE h.subscription_id = w.id \
-                      AND h.status = 'pending' ORDER BY h.seq LIMIT 1) LIMIT 1",
-                $skip_locked
-            ))
-            .bind(db_time(now))
-            .fetch_optional(&mut *c)
-            .await?;
+            locked: bool,
+        ) -> Result<Option<Uuid>, StoreError>
+        where
+            E: sqlx::Executor<'e, Database = $Db>,
+        {
+            let sql = if locked {
+                concat!($crate::store::monitor_sql::dispatchable_subscription!(), $skip_locked)
+            } else {
+                $crate::store::monitor_sql::dispatchable_subscription!()
+            };
+            let found: Option<(Uuid,)> = sqlx::query_as(sql)
+                .bind(db_time(now))
+                .fetch_optional(ex)
+                .await?;
             Ok(found.map(|(id,)| id))
         }
 
@@ -1162,8 +1175,13 @@ macro_rules! monitor_sql {
             lease_until: OffsetDateTime,
             max: usize,
         ) -> Result<Option<DispatchBatch>, StoreError> {
+            // A plain read first: an idle dispatcher's poll opens no write transaction.
+            if next_dispatchable(&store.pool, now, false).await?.is_none() {
+                return Ok(None);
+            }
             let mut tx = store.write_tx().await?;
-            let Some(id) = next_dispatchable(&mut tx, now).await? else {
+            let Some(id) = next_dispatchable(&mut *tx, now, true).await? else {
+                tx.rollback().await?;
                 return Ok(None);
             };
             sqlx::query(
@@ -1277,11 +1295,11 @@ macro_rules! monitor_sql {
             .bind(&a.worker)
             .bind(a.status_code.map(i32::from))
             .bind(&a.error)
-            .bind(i64::try_from(a.duration_ms).unwrap_or(i64::MAX))
+            .bind(limit(a.duration_ms))
             .execute(&mut *c)
             .await
             .map_err(|e| {
-                unique_as_conflict(e, || {
+                StoreError::unique_as_conflict(e, || {
                     format!("attempt {} of delivery {} is logged already", a.attempt, a.delivery_id)
                 })
             })?;

@@ -13,6 +13,12 @@ use crate::model::{
 };
 use crate::units::LengthUnit;
 
+/// A count, size or limit as an SQL `BIGINT` (saturating: nothing the service stores
+/// comes near 2^63).
+pub fn big(n: impl TryInto<i64>) -> i64 {
+    n.try_into().unwrap_or(i64::MAX)
+}
+
 /// A time as one database keeps it.
 pub trait DbTime: Sized {
     /// Into a UTC time.

@@ -165,7 +165,7 @@ macro_rules! common_sql {
                     .push("))");
             }
             q.push(" ORDER BY s.id LIMIT ")
-                .push_bind(i64::try_from(limit).unwrap_or(i64::MAX));
+                .push_bind($crate::store::rows::big(limit));
             q.build_query_as::<StructureRow<$Time>>()
                 .fetch_all(pool)
                 .await?
@@ -726,17 +726,12 @@ macro_rules! analyses_sql {
             .bind(a.result.as_ref().map(Json))
             .bind(&a.error)
             .bind(<$Time as DbTime>::from_time(a.created_at))
-            .bind(i64::try_from(a.duration_ms).unwrap_or(i64::MAX))
+            .bind($crate::store::rows::big(a.duration_ms))
             .bind(&a.structure_id)
             .execute(ex)
             .await
             .map_err(|e| {
-                let e = StoreError::from(e);
-                if e.is_unique_violation() {
-                    StoreError::Conflict(format!("analysis {} exists already", a.id))
-                } else {
-                    e
-                }
+                StoreError::unique_as_conflict(e, || format!("analysis {} exists already", a.id))
             })?;
             if done.rows_affected() == 0 {
                 return Err(StoreError::NotFound(format!(
@@ -798,7 +793,7 @@ macro_rules! analyses_sql {
                     .push("))");
             }
             b.push(" ORDER BY a.created_at DESC, a.id DESC LIMIT ")
-                .push_bind(i64::try_from(q.limit).unwrap_or(i64::MAX));
+                .push_bind($crate::store::rows::big(q.limit));
             b.build_query_as::<AnalysisRow<$Time>>()
                 .fetch_all(pool)
                 .await?

@@ -252,9 +252,7 @@ impl BatchWriter for PgBatchWriter {
     }
 }
 
-fn count(n: u64) -> i64 {
-    i64::try_from(n).unwrap_or(i64::MAX)
-}
+use crate::store::rows::big as count;
 
 pub(super) async fn list_batches(
     pool: &PgPool,
@@ -272,7 +270,7 @@ pub(super) async fn list_batches(
     .bind(structure)
     .bind(after.map(|a| a.0))
     .bind(after.map_or(Uuid::nil(), |a| a.1))
-    .bind(i64::try_from(limit).unwrap_or(i64::MAX))
+    .bind(count(limit))
     .fetch_all(pool)
     .await?
     .into_iter()

@@ -236,9 +236,7 @@ impl BatchWriter for SqliteBatchWriter {
     }
 }
 
-fn count(n: u64) -> i64 {
-    i64::try_from(n).unwrap_or(i64::MAX)
-}
+use crate::store::rows::big as count;
 
 type Query<'q> = sqlx::query::Query<'q, Sqlite, sqlx::sqlite::SqliteArguments>;
 
@@ -282,7 +280,7 @@ pub(super) async fn list_batches(
     .bind(strict)
     .bind(t)
     .bind(id)
-    .bind(i64::try_from(limit).unwrap_or(i64::MAX))
+    .bind(count(limit))
     .fetch_all(pool)
     .await?
     .into_iter()
