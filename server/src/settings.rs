@@ -56,6 +56,14 @@ pub struct SettingsError {
 }
 
 impl JobSettings {
+    /// The back-off between attempts of a job.
+    pub fn backoff(&self) -> crate::backoff::Backoff {
+        crate::backoff::Backoff {
+            base: self.retry_base,
+            max: self.retry_max,
+        }
+    }
+
     /// Check the ranges (call at start-up): a lease of at least 100 ms, at least one
     /// attempt, positive back-off, poll and time limit, `retry_max ≥ retry_base`.
     pub fn validate(&self) -> Result<(), SettingsError> {

@@ -15,7 +15,7 @@ mod api_support;
 
 use api_support::{App, Backend, local_2d};
 use axum::http::Method;
-use kinema_server::api::{self, AppState, Limits};
+use kinema_server::api::Limits;
 use kinema_server::model::{
     AlertRuleRecord, AlertState, Analysis, Evaluation, JobOrigin, JobOutcome, NewJob, Scope,
     Structure, now_utc,
@@ -40,21 +40,23 @@ const HOOK: &str = "https://hooks.example.com/kinema/in";
 /// The app (default settings unless `allow` is given), an admin token, and structures
 /// `BRIDGE-1` and `DAM-2`.
 async fn start(b: Backend, allow: Option<&str>) -> (App, String) {
-    let mut app = App::start(b, Limits::default()).await;
-    if let Some(allow) = allow {
-        let settings = Settings {
-            webhooks: WebhookSettings {
+    let app = match allow {
+        None => App::start(b, Limits::default()).await,
+        Some(allow) => {
+            let webhooks = WebhookSettings {
                 allow: allow.parse().expect("a valid allow-list"),
                 ..WebhookSettings::default()
-            },
-            ..Settings::default()
-        };
-        app.router = api::app(AppState::with_settings(
-            app.store.clone(),
-            Limits::default(),
-            settings,
-        ));
-    }
+            };
+            App::start_with(
+                b,
+                Settings {
+                    webhooks,
+                    ..Settings::default()
+                },
+            )
+            .await
+        }
+    };
     let admin = app.key(Scope::Admin, None).await;
     for id in ["BRIDGE-1", "DAM-2"] {
         let r = app

@@ -22,7 +22,6 @@ use axum::body::Bytes;
 use axum::extract::State;
 use axum::http::{HeaderMap, Method, StatusCode, Uri, header};
 use axum::response::{IntoResponse, Response};
-use kinema_server::api::{self, AppState, Limits};
 use kinema_server::model::{
     AlertRuleRecord, AlertState, Analysis, Evaluation, EventType, JobOrigin, JobOutcome, NewJob,
     Scope, Structure, now_utc,
@@ -214,10 +213,7 @@ async fn an_attempt_is_signed_and_carries_the_headers() {
     // RFC 4231 in the unit tests) over "{timestamp}.{body}".
     let mut msg = format!("{ts}.").into_bytes();
     msg.extend_from_slice(BODY);
-    let want: String = sign::hmac_sha256(b"kn_hooksec_test", &msg)
-        .iter()
-        .map(|b| format!("{b:02x}"))
-        .collect();
+    let want = kinema_server::keys::hex(&sign::hmac_sha256(b"kn_hooksec_test", &msg));
     assert_eq!(sig, format!("sha256={want}"));
 }
 
@@ -346,16 +342,14 @@ fn fast(max_attempts: u32) -> WebhookSettings {
 
 /// The app with `hooks` as its webhook settings, an admin token and structure `id`.
 async fn start(b: Backend, hooks: &WebhookSettings, id: &str) -> (App, String) {
-    let mut app = App::start(b, Limits::default()).await;
-    let settings = Settings {
-        webhooks: hooks.clone(),
-        ..Settings::default()
-    };
-    app.router = api::app(AppState::with_settings(
-        app.store.clone(),
-        Limits::default(),
-        settings,
-    ));
+    let app = App::start_with(
+        b,
+        Settings {
+            webhooks: hooks.clone(),
+            ..Settings::default()
+        },
+    )
+    .await;
     let admin = app.key(Scope::Admin, None).await;
     let put = app
         .call(

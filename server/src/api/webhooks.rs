@@ -122,7 +122,6 @@ fn visible(caller: &Caller, s: &Subscription) -> bool {
     }
 }
 
-/// The ID from the path, or a 422 naming it.
 fn no_subscription(id: Uuid) -> ApiError {
     ApiError::NotFound(format!("no webhook subscription has ID {id}"))
 }
@@ -141,10 +140,11 @@ async fn find(state: &AppState, caller: &Caller, raw: &str) -> Result<Subscripti
 
 /// The event types of a request, or the bad entries.
 fn parse_events(raw: &[String], errs: &mut Vec<FieldError>) -> Vec<EventType> {
+    let types = EventType::ALL.map(EventType::as_str).join(", ");
     if raw.is_empty() {
         errs.push(FieldError::new(
             "/events",
-            "give at least one event type: analysis.finished, analysis.failed, alert.raised, alert.cleared",
+            format!("give at least one event type: {types}"),
         ));
     }
     let mut out = Vec::new();
@@ -157,9 +157,7 @@ fn parse_events(raw: &[String], errs: &mut Vec<FieldError>) -> Vec<EventType> {
             Some(t) => out.push(t),
             None => errs.push(FieldError::new(
                 format!("/events/{i}"),
-                format!(
-                    "unknown event type {name:?}; the types are analysis.finished, analysis.failed, alert.raised, alert.cleared"
-                ),
+                format!("unknown event type {name:?}; the types are {types}"),
             )),
         }
     }

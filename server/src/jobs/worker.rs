@@ -14,7 +14,7 @@ use tokio_util::sync::CancellationToken;
 use super::execute::execute;
 use super::request::AnalysisInput;
 use crate::api::AppState;
-use crate::backoff::{Backoff, later};
+use crate::backoff::later;
 use crate::model::{Job, JobOutcome, Lease, now_utc};
 use crate::settings::JobSettings;
 use crate::store::{Completed, StoreError};
@@ -22,11 +22,7 @@ use crate::store::{Completed, StoreError};
 /// When attempt `attempt + 1` may start after attempt `attempt` failed at `now`
 /// ([`crate::backoff`]: exponential, capped, equal jitter).
 fn retry_at(settings: &JobSettings, attempt: u32, now: OffsetDateTime) -> OffsetDateTime {
-    let b = Backoff {
-        base: settings.retry_base,
-        max: settings.retry_max,
-    };
-    later(now, b.delay(attempt))
+    later(now, settings.backoff().delay(attempt))
 }
 
 /// Renew `lease` every third of the lease time until `stop` is cancelled.
@@ -208,17 +204,13 @@ pub async fn run(state: AppState, worker: String, shutdown: CancellationToken) {
     }
 }
 
-/// Start [`JobSettings::workers`] workers named `<process>/<n>`; they stop when
+/// Start [`JobSettings::workers`] workers named `<process>/jobs-<n>`; they stop when
 /// `shutdown` is cancelled (a job in progress is finished first).
 pub fn spawn(state: &AppState, shutdown: &CancellationToken) -> Vec<JoinHandle<()>> {
-    let process = crate::worker_id::process_name();
     (0..state.settings.jobs.workers)
         .map(|n| {
-            tokio::spawn(run(
-                state.clone(),
-                format!("{process}/{n}"),
-                shutdown.clone(),
-            ))
+            let name = crate::worker_id::worker_name("jobs", n);
+            tokio::spawn(run(state.clone(), name, shutdown.clone()))
         })
         .collect()
 }

@@ -66,7 +66,7 @@ pub async fn run(
     let mut errors: u32 = 0;
     while !shutdown.is_cancelled() {
         let wait = match round(store.as_ref(), &sender, &settings, &worker, &shutdown).await {
-            Ok(Some(r)) if r.attempts > 0 => {
+            Ok(Some(n)) if n > 0 => {
                 errors = 0;
                 continue;
             }
@@ -109,42 +109,33 @@ pub fn spawn(
         .collect()
 }
 
-/// A dispatcher name unique among processes: the process's name
-/// ([`crate::worker_id::process_name`]: host, process ID, a random part) and the index,
-/// e.g. `bridge-srv-2:4711:3fa1c2/webhooks-0`.
+/// The name of this process's dispatcher `index`, unique among processes
+/// ([`crate::worker_id::worker_name`]), e.g. `bridge-srv-2:4711:3fa1c2/webhooks-0`.
 pub fn worker_name(index: usize) -> String {
-    format!("{}/webhooks-{index}", crate::worker_id::process_name())
+    crate::worker_id::worker_name("webhooks", index)
 }
 
 /// The wait after `errors` store errors in a row: the poll interval doubled per error,
 /// at most 30 s.
 fn error_wait(poll: Duration, errors: u32) -> Duration {
-    let doublings = errors.saturating_sub(1).min(16);
-    poll.saturating_mul(1u32 << doublings)
-        .min(MAX_ERROR_WAIT.max(poll))
-}
-
-/// What one round did.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Round {
-    /// The subscription claimed.
-    pub subscription: Uuid,
-    /// Attempts made.
-    pub attempts: usize,
-    /// Of them, delivered.
-    pub delivered: usize,
+    crate::backoff::Backoff {
+        base: poll,
+        max: MAX_ERROR_WAIT.max(poll),
+    }
+    .ceiling(errors)
 }
 
 /// One round: claim a subscription with due deliveries, send them in `seq` order up to
 /// the first failure (or the first that is not due, or the end of the claim), log each
-/// attempt, release the claim. `None` when nothing is due.
+/// attempt, release the claim. Returns how many attempts were made (`None` when nothing
+/// was due).
 pub async fn round(
     store: &dyn Store,
     sender: &Sender,
     settings: &WebhookSettings,
     worker: &str,
     shutdown: &CancellationToken,
-) -> Result<Option<Round>, StoreError> {
+) -> Result<Option<usize>, StoreError> {
     let now = now_utc();
     let lease_until = later(now, settings.lease);
     let Some(batch) = store
@@ -154,11 +145,7 @@ pub async fn round(
         return Ok(None);
     };
     let sub = &batch.subscription;
-    let mut done = Round {
-        subscription: sub.id,
-        attempts: 0,
-        delivered: 0,
-    };
+    let mut attempts = 0;
     let mut outcome = Ok(());
     for (delivery, event) in &batch.items {
         let now = now_utc();
@@ -197,7 +184,7 @@ pub async fn round(
             error: attempt.error.clone(),
             duration_ms: u64::try_from(attempt.duration.as_millis()).unwrap_or(u64::MAX),
         };
-        done.attempts += 1;
+        attempts += 1;
         trace_attempt(worker, sub.id, &log, next);
         match store.record_attempt(worker, &log, next).await {
             Ok(()) => {}
@@ -216,12 +203,11 @@ pub async fn round(
         if !attempt.delivered() {
             break;
         }
-        done.delivered += 1;
     }
     if let Err(e) = store.release_dispatch(worker, sub.id).await {
         tracing::warn!(worker, subscription = %sub.id, error = %e, "webhook dispatcher: claim not released (it expires with its lease)");
     }
-    outcome.map(|()| Some(done))
+    outcome.map(|()| Some(attempts))
 }
 
 /// What follows attempt `number`: delivered, retry after the back-off, or give up after
@@ -304,7 +290,7 @@ mod tests {
     }
 
     #[test]
-    fn times_saturate_and_names_are_distinct() {
+    fn times_saturate_and_names_carry_the_process() {
         let t = time::macros::datetime!(2026-03-01 12:00:00 UTC);
         assert_eq!(
             later(t, Duration::from_secs(60)),
@@ -314,8 +300,7 @@ mod tests {
             later(t, Duration::MAX),
             time::PrimitiveDateTime::MAX.assume_utc()
         );
-        let (a, b) = (worker_name(0), worker_name(0));
-        assert_ne!(a, b);
+        let a = worker_name(0);
         assert!(a.ends_with("/webhooks-0") && a.contains(&std::process::id().to_string()));
     }
 }
